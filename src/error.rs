@@ -1,0 +1,64 @@
+//! Errors, one type per layer. Input errors carry file, line and field so the user can fix the
+//! file without guessing; the CLI maps them to exit code 2.
+
+use std::path::PathBuf;
+
+/// A problem with a network file: where it is and what is wrong.
+#[derive(Debug, Clone, PartialEq)]
+pub struct InputError {
+    pub file: PathBuf,
+    /// 1-based line, when the position is known.
+    pub line: Option<usize>,
+    /// The field (TOML key path) at fault, e.g. `reaction[2].kf`.
+    pub field: String,
+    pub message: String,
+}
+
+impl std::fmt::Display for InputError {
+    fn fmt(&self, f: &mut std::fmt::Formatter<'_>) -> std::fmt::Result {
+        write!(f, "{}", self.file.display())?;
+        if let Some(line) = self.line {
+            write!(f, ", line {line}")?;
+        }
+        if !self.field.is_empty() {
+            write!(f, ", field `{}`", self.field)?;
+        }
+        write!(f, ": {}", self.message)
+    }
+}
+
+impl std::error::Error for InputError {}
+
+/// Everything that can stop a run.
+#[derive(Debug, thiserror::Error)]
+pub enum Error {
+    #[error("{0}")]
+    Input(#[from] InputError),
+    #[error("cannot read {path}: {source}")]
+    Read {
+        path: PathBuf,
+        source: std::io::Error,
+    },
+    #[error("cannot write {path}: {message}")]
+    Write { path: PathBuf, message: String },
+    #[error(
+        "{path} already holds results of an earlier run ({existing}); \
+         choose another --out directory or pass --force to replace them"
+    )]
+    OutputExists { path: PathBuf, existing: String },
+    #[error("integration failed at t = {time:.6e} s: {reason}")]
+    Integration { time: f64, reason: String },
+    #[error("bad option {option}: {message}")]
+    Option { option: String, message: String },
+}
+
+impl Error {
+    /// Exit code for the command line: 2 for anything the user must fix in the input or the
+    /// command, 1 for a failure of the computation itself.
+    pub fn exit_code(&self) -> u8 {
+        match self {
+            Error::Input(_) | Error::OutputExists { .. } | Error::Option { .. } | Error::Read { .. } => 2,
+            Error::Write { .. } | Error::Integration { .. } => 1,
+        }
+    }
+}

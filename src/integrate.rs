@@ -1,0 +1,448 @@
+//! Stiff integration with the Rosenbrock method RODAS4 and detection of equilibrium.
+//!
+//! RODAS4 (Hairer & Wanner, *Solving Ordinary Differential Equations II*, 2nd ed., Springer
+//! 1996, section IV.7; coefficients of their code RODAS) is a six-stage, L-stable, stiffly
+//! accurate method of order 4 with an embedded order-3 error estimate. Each step needs one
+//! Jacobian and one LU factorisation of I/(hγ) − J and no Newton iteration, which suits
+//! mass-action networks: the analytic Jacobian is cheap and exact.
+//!
+//! Equilibrium is declared when the linearised distance to the steady state, the solution δ of
+//! J δ = −f restricted to the stoichiometric subspace (conservation totals held fixed), is below
+//! the integration tolerance for every species, at two successive steps. A slow mode cannot hide
+//! from this test: its share of δ is its rate divided by its eigenvalue, however slow it is.
+
+use std::time::Instant;
+
+use crate::error::Error;
+use crate::kinetics::RateModel;
+use crate::linalg::{LinearSolver, Pattern};
+use crate::stoich::ConservationLaw;
+
+/// Integration settings.
+#[derive(Debug, Clone)]
+pub struct Options {
+    /// Relative tolerance.
+    pub rtol: f64,
+    /// Absolute tolerance per species, mol/L.
+    pub atol: Vec<f64>,
+    /// Integrate exactly to this time (s); the run still continues to equilibrium detection
+    /// when `to_equilibrium` is set.
+    pub until: Option<f64>,
+    /// Keep going until equilibrium is detected (or `max_time`).
+    pub to_equilibrium: bool,
+    /// Give up looking for equilibrium at this time, s.
+    pub max_time: f64,
+    pub max_steps: usize,
+    /// Force the dense (true) or sparse (false) linear solver; `None` chooses by size.
+    pub force_dense: Option<bool>,
+}
+
+impl Options {
+    pub fn new(n_species: usize) -> Options {
+        Options {
+            rtol: DEFAULT_RTOL,
+            atol: vec![DEFAULT_ATOL; n_species],
+            until: None,
+            to_equilibrium: true,
+            max_time: DEFAULT_MAX_TIME,
+            max_steps: 200_000,
+            force_dense: None,
+        }
+    }
+}
+
+pub const DEFAULT_RTOL: f64 = 1e-6;
+/// Default absolute tolerance, mol/L; trace species can set their own in the network file.
+pub const DEFAULT_ATOL: f64 = 1e-12;
+/// About 31 700 years: far beyond any batch, still finite.
+pub const DEFAULT_MAX_TIME: f64 = 1e12;
+
+/// Why the integration stopped.
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub enum StopReason {
+    /// Reached the requested time (and equilibrium, if it was looked for, see `equilibrium_at`).
+    ReachedTime,
+    /// Equilibrium detected; no end time was requested.
+    Equilibrium,
+    /// No equilibrium detected by `max_time`.
+    MaxTime,
+    /// Step budget used up.
+    MaxSteps,
+}
+
+/// Work counters, for the summary and for comparisons between solvers.
+#[derive(Debug, Clone, Default, PartialEq, serde::Serialize)]
+pub struct Stats {
+    pub method: String,
+    pub linear_solver: String,
+    pub steps: usize,
+    pub rejected_steps: usize,
+    pub negative_rejections: usize,
+    pub rhs_evals: usize,
+    pub jacobian_evals: usize,
+    pub lu_factorizations: usize,
+    pub equilibrium_checks: usize,
+    pub seconds: f64,
+}
+
+/// The integrated trajectory at every accepted step, with derivatives for Hermite
+/// interpolation between steps.
+#[derive(Debug, Clone)]
+pub struct Trajectory {
+    pub times: Vec<f64>,
+    pub states: Vec<Vec<f64>>,
+    pub derivatives: Vec<Vec<f64>>,
+}
+
+impl Trajectory {
+    pub fn end_time(&self) -> f64 {
+        *self.times.last().expect("trajectory has the initial point")
+    }
+
+    pub fn last_state(&self) -> &[f64] {
+        self.states.last().expect("trajectory has the initial point")
+    }
+
+    /// State at time t by cubic Hermite interpolation between accepted steps (clamped to the
+    /// integrated span).
+    pub fn state_at(&self, t: f64) -> Vec<f64> {
+        let k = self.interval(t);
+        (0..self.states[0].len()).map(|i| self.hermite(k, i, t)).collect()
+    }
+
+    /// Concentration of species i at time t.
+    pub fn value_at(&self, i: usize, t: f64) -> f64 {
+        self.hermite(self.interval(t), i, t)
+    }
+
+    /// Index k with times[k] <= t <= times[k+1].
+    fn interval(&self, t: f64) -> usize {
+        let n = self.times.len();
+        if n < 2 {
+            return 0;
+        }
+        match self.times.binary_search_by(|x| x.total_cmp(&t)) {
+            Ok(k) => k.min(n - 2),
+            Err(k) => k.saturating_sub(1).min(n - 2),
+        }
+    }
+
+    fn hermite(&self, k: usize, i: usize, t: f64) -> f64 {
+        if self.times.len() < 2 {
+            return self.states[0][i];
+        }
+        let (t0, t1) = (self.times[k], self.times[k + 1]);
+        let h = t1 - t0;
+        let s = ((t - t0) / h).clamp(0.0, 1.0);
+        let (y0, y1) = (self.states[k][i], self.states[k + 1][i]);
+        let (d0, d1) = (self.derivatives[k][i] * h, self.derivatives[k + 1][i] * h);
+        let s2 = s * s;
+        let s3 = s2 * s;
+        (2.0 * s3 - 3.0 * s2 + 1.0) * y0 + (s3 - 2.0 * s2 + s) * d0 + (-2.0 * s3 + 3.0 * s2) * y1 + (s3 - s2) * d1
+    }
+}
+
+/// Result of an integration.
+#[derive(Debug, Clone)]
+pub struct Solution {
+    pub trajectory: Trajectory,
+    pub stats: Stats,
+    pub stop: StopReason,
+    /// Time at which equilibrium was detected, if it was.
+    pub equilibrium_at: Option<f64>,
+    /// Most negative concentration accepted, relative to its tolerance (≥ -1 by construction).
+    pub worst_negative: f64,
+}
+
+/// RODAS4 coefficients in the transformed formulation (Hairer & Wanner 1996, IV.7).
+mod rodas4 {
+    pub const GAMMA: f64 = 0.25;
+    pub const A: [[f64; 5]; 6] = [
+        [0.0; 5],
+        [1.544, 0.0, 0.0, 0.0, 0.0],
+        [0.946_678_528_081_582_6, 0.255_701_169_898_328_4, 0.0, 0.0, 0.0],
+        [3.314_825_187_068_521, 2.896_124_015_972_201, 0.998_641_913_997_781_7, 0.0, 0.0],
+        [1.221_224_509_226_641, 6.019_134_481_288_629, 12.537_083_329_320_87, -0.687_886_036_105_895, 0.0],
+        [1.221_224_509_226_641, 6.019_134_481_288_629, 12.537_083_329_320_87, -0.687_886_036_105_895, 1.0],
+    ];
+    pub const C: [[f64; 5]; 6] = [
+        [0.0; 5],
+        [-5.6688, 0.0, 0.0, 0.0, 0.0],
+        [-2.430_093_356_833_875, -0.206_359_915_709_191_5, 0.0, 0.0, 0.0],
+        [-0.107_352_905_815_137_5, -9.594_562_251_023_355, -20.470_286_148_096_16, 0.0, 0.0],
+        [7.496_443_313_967_647, -10.246_804_314_643_52, -33.999_903_528_199_05, 11.708_908_932_061_6, 0.0],
+        [8.083_246_795_921_522, -7.981_132_988_064_893, -31.521_594_328_743_71, 16.319_305_431_231_36, -6.058_818_238_834_054],
+    ];
+}
+
+const SAFETY: f64 = 0.9;
+const MAX_GROWTH: f64 = 6.0;
+const MAX_SHRINK: f64 = 0.2;
+/// The equilibrium test runs only once every t·|dc/dt| is within this many tolerances: a cheap
+/// screen that skips the test during the transient.
+const EQUILIBRIUM_SCREEN: f64 = 1e4;
+
+/// Integrates the network from `c0`.
+pub fn integrate(model: &RateModel, laws: &[ConservationLaw], c0: &[f64], options: &Options) -> Result<Solution, Error> {
+    let started = Instant::now();
+    let n = model.n_species();
+    let mut stats = Stats {
+        method: "RODAS4 (Rosenbrock, order 4(3), L-stable)".into(),
+        ..Stats::default()
+    };
+    let jac_pattern = model.pattern().clone();
+    let diagonal = jac_pattern.diagonal_positions();
+    let mut solver = LinearSolver::new(jac_pattern.clone(), options.force_dense);
+    stats.linear_solver = if solver.is_sparse() { "sparse LU" } else { "dense LU" }.into();
+    let mut detector = EquilibriumDetector::new(&jac_pattern, laws, options.force_dense);
+
+    let end = options.until.unwrap_or(options.max_time);
+    let mut t = 0.0;
+    let mut y = c0.to_vec();
+    let mut f = vec![0.0; n];
+    model.rhs(&y, &mut f);
+    stats.rhs_evals += 1;
+    let mut trajectory = Trajectory {
+        times: vec![0.0],
+        states: vec![y.clone()],
+        derivatives: vec![f.clone()],
+    };
+    let scale = |y0: &[f64], y1: &[f64], i: usize| options.atol[i] + options.rtol * y0[i].abs().max(y1[i].abs());
+    let mut h = initial_step(&y, &f, options, end);
+    let mut jac = vec![0.0; jac_pattern.nnz()];
+    let mut matrix = vec![0.0; jac_pattern.nnz()];
+    let mut u = vec![vec![0.0; n]; 6];
+    let mut stage = vec![0.0; n];
+    let mut fs = vec![0.0; n];
+    let mut y_new = vec![0.0; n];
+    let mut equilibrium_at = None;
+    let mut worst_negative: f64 = 0.0;
+    let mut rejected_last = false;
+
+    let stop = loop {
+        let target = if options.until.is_some_and(|u| t < u) { options.until.unwrap_or(end) } else { options.max_time };
+        let done_until = options.until.is_none_or(|u| t >= u);
+        if done_until && (!options.to_equilibrium || equilibrium_at.is_some()) {
+            break if options.until.is_some() { StopReason::ReachedTime } else { StopReason::Equilibrium };
+        }
+        if t >= options.max_time {
+            break if options.until.is_some_and(|u| u <= t) { StopReason::ReachedTime } else { StopReason::MaxTime };
+        }
+        if stats.steps >= options.max_steps {
+            break StopReason::MaxSteps;
+        }
+        h = h.min(target - t);
+        if h <= 1e-14 * t.max(1e-300) || !h.is_finite() {
+            return Err(Error::Integration {
+                time: t,
+                reason: format!("step size fell to {h:.3e} s; the network may be ill-posed (check constants and orders)"),
+            });
+        }
+
+        // One RODAS4 step from (t, y) with step h.
+        model.jacobian(&y, &mut jac);
+        stats.jacobian_evals += 1;
+        let inv = 1.0 / (h * rodas4::GAMMA);
+        for (m, j) in matrix.iter_mut().zip(&jac) {
+            *m = -j;
+        }
+        for &d in &diagonal {
+            matrix[d] += inv;
+        }
+        stats.lu_factorizations += 1;
+        if solver.factor(&matrix).is_err() {
+            h *= 0.25;
+            stats.rejected_steps += 1;
+            continue;
+        }
+        let mut failed = false;
+        for s in 0..6 {
+            if s == 0 {
+                u[0].copy_from_slice(&f);
+            } else {
+                for i in 0..n {
+                    stage[i] = y[i] + (0..s).map(|j| rodas4::A[s][j] * u[j][i]).sum::<f64>();
+                }
+                model.rhs(&stage, &mut fs);
+                stats.rhs_evals += 1;
+                for i in 0..n {
+                    fs[i] += (0..s).map(|j| rodas4::C[s][j] * u[j][i]).sum::<f64>() / h;
+                }
+                u[s].copy_from_slice(&fs);
+            }
+            if solver.solve(&mut u[s]).is_err() {
+                failed = true;
+                break;
+            }
+        }
+        if failed {
+            h *= 0.25;
+            stats.rejected_steps += 1;
+            continue;
+        }
+        // Stiffly accurate: y1 = Y6 + u6, and u6 is the error estimate.
+        let mut err = 0.0;
+        for i in 0..n {
+            y_new[i] = y[i] + (0..5).map(|j| rodas4::A[5][j] * u[j][i]).sum::<f64>() + u[5][i];
+        }
+        for i in 0..n {
+            let e = u[5][i] / scale(&y, &y_new, i);
+            err += e * e;
+        }
+        let err = (err / n as f64).sqrt();
+        let negative = (0..n).map(|i| y_new[i] / scale(&y, &y_new, i)).fold(0.0_f64, f64::min);
+        if !err.is_finite() || negative < -1.0 {
+            if err <= 1.0 && negative < -1.0 {
+                stats.negative_rejections += 1;
+            }
+            stats.rejected_steps += 1;
+            h *= if err.is_finite() && err > 1.0 { factor(err).min(1.0) } else { 0.25 };
+            rejected_last = true;
+            continue;
+        }
+        if err > 1.0 {
+            stats.rejected_steps += 1;
+            h *= factor(err).min(1.0);
+            rejected_last = true;
+            continue;
+        }
+
+        // Accept.
+        t += h;
+        if options.until.is_some_and(|u| (t - u).abs() <= 1e-12 * u) {
+            t = options.until.unwrap_or(t);
+        }
+        std::mem::swap(&mut y, &mut y_new);
+        model.rhs(&y, &mut f);
+        stats.rhs_evals += 1;
+        stats.steps += 1;
+        worst_negative = worst_negative.min(negative);
+        trajectory.times.push(t);
+        trajectory.states.push(y.clone());
+        trajectory.derivatives.push(f.clone());
+
+        if options.to_equilibrium && equilibrium_at.is_none() {
+            let screened = (0..n).all(|i| t * f[i].abs() <= EQUILIBRIUM_SCREEN * scale(&y, &y, i));
+            if screened {
+                stats.equilibrium_checks += 1;
+                model.jacobian(&y, &mut jac);
+                stats.jacobian_evals += 1;
+                let tol: Vec<f64> = (0..n).map(|i| scale(&y, &y, i)).collect();
+                if detector.check(&jac, &f, &tol) {
+                    equilibrium_at = Some(t);
+                }
+            } else {
+                detector.reset();
+            }
+        }
+
+        let grow = factor(err);
+        h *= if rejected_last { grow.min(1.0) } else { grow };
+        rejected_last = false;
+    };
+    stats.seconds = started.elapsed().as_secs_f64();
+    Ok(Solution {
+        trajectory,
+        stats,
+        stop,
+        equilibrium_at,
+        worst_negative,
+    })
+}
+
+/// Step-size factor from the error norm for an order-3 embedded estimate.
+fn factor(err: f64) -> f64 {
+    (SAFETY * err.max(1e-10).powf(-0.25)).clamp(MAX_SHRINK, MAX_GROWTH)
+}
+
+/// A first step from the size of the state and its rate of change (Hairer-Wanner style).
+fn initial_step(y: &[f64], f: &[f64], options: &Options, end: f64) -> f64 {
+    let n = y.len() as f64;
+    let sc = |i: usize| options.atol[i] + options.rtol * y[i].abs();
+    let d0 = (y.iter().enumerate().map(|(i, v)| (v / sc(i)).powi(2)).sum::<f64>() / n).sqrt();
+    let d1 = (f.iter().enumerate().map(|(i, v)| (v / sc(i)).powi(2)).sum::<f64>() / n).sqrt();
+    let h = if d0 < 1e-5 || d1 < 1e-5 { 1e-6 } else { 0.01 * d0 / d1 };
+    h.min(end).max(1e-12 * end.min(1.0))
+}
+
+/// Solves the bordered system [J Lᵀ; L 0] [δ; μ] = [−f; 0]: the Newton step to the steady state
+/// that keeps every conservation total fixed. It is non-singular exactly when the steady state
+/// is isolated within its stoichiometric class.
+struct EquilibriumDetector {
+    n: usize,
+    jac_positions: Vec<usize>,
+    pattern: Pattern,
+    values: Vec<f64>,
+    solver: LinearSolver,
+    passes: usize,
+}
+
+impl EquilibriumDetector {
+    fn new(jac: &Pattern, laws: &[ConservationLaw], force_dense: Option<bool>) -> EquilibriumDetector {
+        let n = jac.n;
+        let mut entries = Vec::new();
+        for col in 0..n {
+            for k in jac.col_ptr[col]..jac.col_ptr[col + 1] {
+                entries.push((jac.row_idx[k], col));
+            }
+        }
+        for (l, law) in laws.iter().enumerate() {
+            for &(i, _) in &law.coefficients {
+                entries.push((n + l, i));
+                entries.push((i, n + l));
+            }
+        }
+        let pattern = Pattern::from_entries(n + laws.len(), entries);
+        let mut values = vec![0.0; pattern.nnz()];
+        for (l, law) in laws.iter().enumerate() {
+            let norm = law.coefficients.iter().fold(0.0_f64, |m, e| m.max(e.1.abs()));
+            for &(i, c) in &law.coefficients {
+                values[pattern.position(n + l, i).expect("in pattern")] = c / norm;
+                values[pattern.position(i, n + l).expect("in pattern")] = c / norm;
+            }
+        }
+        let mut jac_positions = Vec::with_capacity(jac.nnz());
+        for col in 0..n {
+            for k in jac.col_ptr[col]..jac.col_ptr[col + 1] {
+                jac_positions.push(pattern.position(jac.row_idx[k], col).expect("in pattern"));
+            }
+        }
+        let solver = LinearSolver::new(pattern.clone(), force_dense);
+        EquilibriumDetector {
+            n,
+            jac_positions,
+            pattern,
+            values,
+            solver,
+            passes: 0,
+        }
+    }
+
+    fn reset(&mut self) {
+        self.passes = 0;
+    }
+
+    /// True when the linearised distance to equilibrium has been within `tol` (per species) at
+    /// two successive checks.
+    fn check(&mut self, jac: &[f64], f: &[f64], tol: &[f64]) -> bool {
+        for (&pos, &v) in self.jac_positions.iter().zip(jac) {
+            self.values[pos] = v;
+        }
+        let close = match self.newton_step(f) {
+            Some(delta) => delta.iter().zip(tol).all(|(d, t)| d.abs() <= *t),
+            None => false,
+        };
+        self.passes = if close { self.passes + 1 } else { 0 };
+        self.passes >= 2
+    }
+
+    /// δ for the current values, or None when the bordered matrix is singular.
+    fn newton_step(&mut self, f: &[f64]) -> Option<Vec<f64>> {
+        self.solver.factor(&self.values).ok()?;
+        let mut rhs: Vec<f64> = f.iter().map(|v| -v).collect();
+        rhs.resize(self.pattern.n, 0.0);
+        self.solver.solve(&mut rhs).ok()?;
+        rhs.truncate(self.n);
+        Some(rhs)
+    }
+}

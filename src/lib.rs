@@ -1,0 +1,12 @@
+//! kinequil: reversible reaction networks in closed, isothermal batches.
+//!
+//! Data flows one way: a network file is read into a [`network::Network`], its
+//! [`stoich::Stoichiometry`] and [`kinetics::RateModel`] are built, [`integrate`] runs the stiff
+//! integration, [`analysis`] derives time to equilibrium, and [`report`] writes the files.
+
+pub mod error;
+pub mod network;
+pub mod kinetics;
+pub mod linalg;
+pub mod stoich;
+pub mod integrate;

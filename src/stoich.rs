@@ -1,0 +1,245 @@
+//! Stoichiometric matrix and conservation laws.
+//!
+//! The matrix N has one row per species and one column per reaction (products minus
+//! reactants). A conservation law is a vector l with lᵀN = 0: the total lᵀc never changes,
+//! whatever the rates. The laws are a basis of the left null space, found by sparse Gauss-Jordan
+//! elimination of Nᵀ so that networks of thousands of species stay cheap.
+
+use crate::network::Network;
+
+/// Entries below this fraction of the largest entry in a row are rounding, not chemistry.
+const DROP_TOL: f64 = 1e-12;
+
+/// A linear combination of species whose total is constant.
+#[derive(Debug, Clone, PartialEq)]
+pub struct ConservationLaw {
+    /// (species index, coefficient), coefficients scaled so the smallest magnitude is 1.
+    pub coefficients: Vec<(usize, f64)>,
+}
+
+impl ConservationLaw {
+    pub fn total(&self, y: &[f64]) -> f64 {
+        self.coefficients.iter().map(|&(i, c)| c * y[i]).sum()
+    }
+
+    /// The size against which drift is judged: the sum of |l_i c_i|.
+    pub fn magnitude(&self, y: &[f64]) -> f64 {
+        self.coefficients.iter().map(|&(i, c)| (c * y[i]).abs()).sum()
+    }
+
+    /// Human-readable form, e.g. `A + 2 C`.
+    pub fn describe(&self, names: &[String]) -> String {
+        let mut text = String::new();
+        for (k, &(i, c)) in self.coefficients.iter().enumerate() {
+            let sign = if c < 0.0 { "-" } else { "+" };
+            if k == 0 {
+                if c < 0.0 {
+                    text.push('-');
+                }
+            } else {
+                text.push_str(&format!(" {sign} "));
+            }
+            if (c.abs() - 1.0).abs() > 1e-12 {
+                text.push_str(&format!("{} ", format_coefficient(c.abs())));
+            }
+            text.push_str(&names[i]);
+        }
+        text
+    }
+}
+
+fn format_coefficient(c: f64) -> String {
+    if (c - c.round()).abs() < 1e-9 {
+        format!("{}", c.round() as i64)
+    } else {
+        format!("{c:.4}")
+    }
+}
+
+/// The stoichiometry of a network.
+#[derive(Debug, Clone)]
+pub struct Stoichiometry {
+    pub n_species: usize,
+    /// Net coefficients of each reaction: (species index, products minus reactants), non-zero only.
+    pub columns: Vec<Vec<(usize, f64)>>,
+    pub conservation: Vec<ConservationLaw>,
+    /// Rank of N: the number of independent reactions.
+    pub rank: usize,
+}
+
+impl Stoichiometry {
+    pub fn new(network: &Network) -> Stoichiometry {
+        let n_species = network.n_species();
+        let columns: Vec<Vec<(usize, f64)>> = network
+            .reactions
+            .iter()
+            .map(|r| net_change(&r.reactants, &r.products))
+            .collect();
+        let (conservation, rank) = left_null_space(n_species, &columns);
+        Stoichiometry {
+            n_species,
+            columns,
+            conservation,
+            rank,
+        }
+    }
+}
+
+/// products minus reactants, as sorted sparse entries with zeros dropped.
+pub fn net_change(reactants: &[(usize, f64)], products: &[(usize, f64)]) -> Vec<(usize, f64)> {
+    let mut net: Vec<(usize, f64)> = Vec::new();
+    for (&(i, c), sign) in reactants.iter().map(|e| (e, -1.0)).chain(products.iter().map(|e| (e, 1.0))) {
+        match net.iter_mut().find(|(j, _)| *j == i) {
+            Some(entry) => entry.1 += sign * c,
+            None => net.push((i, sign * c)),
+        }
+    }
+    net.retain(|&(_, c)| c != 0.0);
+    net.sort_by_key(|&(i, _)| i);
+    net
+}
+
+/// A sparse row: sorted (column, value) pairs.
+type Row = Vec<(usize, f64)>;
+
+/// Basis of {l : lᵀN = 0} by incremental Gauss-Jordan on the rows of Nᵀ (one per reaction),
+/// keeping every pivot row free of the other pivot columns. Returns the basis and rank N.
+fn left_null_space(n_species: usize, columns: &[Row]) -> (Vec<ConservationLaw>, usize) {
+    let mut pivot_rows: Vec<(usize, Row)> = Vec::new(); // (pivot column, row with 1 at pivot)
+    let mut pivot_of = vec![usize::MAX; n_species];
+    for column in columns {
+        let mut row = column.clone();
+        // Eliminate existing pivots; rows are fully reduced, so one pass suffices.
+        let hits: Vec<(usize, f64)> = row.iter().filter(|(c, _)| pivot_of[*c] != usize::MAX).copied().collect();
+        for (c, v) in hits {
+            row = axpy(&row, -v, &pivot_rows[pivot_of[c]].1);
+        }
+        drop_small(&mut row);
+        let Some(&(pivot, value)) = row.iter().max_by(|a, b| a.1.abs().total_cmp(&b.1.abs())) else {
+            continue;
+        };
+        for entry in row.iter_mut() {
+            entry.1 /= value;
+        }
+        for (_, other) in pivot_rows.iter_mut() {
+            if let Ok(k) = other.binary_search_by_key(&pivot, |e| e.0) {
+                let v = other[k].1;
+                *other = axpy(other, -v, &row);
+                drop_small(other);
+            }
+        }
+        pivot_of[pivot] = pivot_rows.len();
+        pivot_rows.push((pivot, row));
+    }
+    let rank = pivot_rows.len();
+    let laws = (0..n_species)
+        .filter(|&f| pivot_of[f] == usize::MAX)
+        .map(|free| {
+            let mut coefficients = vec![(free, 1.0)];
+            for (pivot, row) in &pivot_rows {
+                if let Ok(k) = row.binary_search_by_key(&free, |e| e.0) {
+                    coefficients.push((*pivot, -row[k].1));
+                }
+            }
+            coefficients.sort_by_key(|e| e.0);
+            ConservationLaw {
+                coefficients: tidy(coefficients),
+            }
+        })
+        .collect();
+    (laws, rank)
+}
+
+/// a + s·b for sorted sparse rows.
+fn axpy(a: &Row, s: f64, b: &Row) -> Row {
+    let mut out = Vec::with_capacity(a.len() + b.len());
+    let (mut i, mut j) = (0, 0);
+    while i < a.len() || j < b.len() {
+        if j == b.len() || (i < a.len() && a[i].0 < b[j].0) {
+            out.push(a[i]);
+            i += 1;
+        } else if i == a.len() || b[j].0 < a[i].0 {
+            out.push((b[j].0, s * b[j].1));
+            j += 1;
+        } else {
+            out.push((a[i].0, a[i].1 + s * b[j].1));
+            i += 1;
+            j += 1;
+        }
+    }
+    out
+}
+
+fn drop_small(row: &mut Row) {
+    let largest = row.iter().fold(0.0_f64, |m, e| m.max(e.1.abs()));
+    row.retain(|e| e.1.abs() > DROP_TOL * largest.max(1.0));
+}
+
+/// Scales a law so its smallest coefficient has magnitude 1 and the leading one is positive,
+/// and snaps near-integers, so that `A + B + 2 C` reads as a chemist would write it.
+fn tidy(mut coefficients: Row) -> Row {
+    let smallest = coefficients.iter().fold(f64::INFINITY, |m, e| m.min(e.1.abs()));
+    let sign = if coefficients.iter().all(|e| e.1 <= 0.0) { -1.0 } else { 1.0 };
+    for entry in coefficients.iter_mut() {
+        let v = sign * entry.1 / smallest;
+        entry.1 = if (v - v.round()).abs() < 1e-9 { v.round() } else { v };
+    }
+    coefficients
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    /// Checks lᵀN = 0 for every law (by recomposition; tolerance 1e-12, rounding only).
+    fn assert_laws_annihilate(columns: &[Row], laws: &[ConservationLaw]) {
+        for law in laws {
+            for column in columns {
+                let dot: f64 = column
+                    .iter()
+                    .map(|&(i, v)| v * law.coefficients.iter().find(|e| e.0 == i).map_or(0.0, |e| e.1))
+                    .sum();
+                assert!(dot.abs() < 1e-12, "law {law:?} does not annihilate {column:?}");
+            }
+        }
+    }
+
+    #[test]
+    fn a_plus_b_to_c_conserves_two_totals() {
+        // A + B <=> C: A + C and B + C are conserved (common practice; by inspection).
+        let columns = vec![net_change(&[(0, 1.0), (1, 1.0)], &[(2, 1.0)])];
+        let (laws, rank) = left_null_space(3, &columns);
+        assert_eq!(rank, 1);
+        assert_eq!(laws.len(), 2);
+        assert_laws_annihilate(&columns, &laws);
+    }
+
+    #[test]
+    fn robertson_conserves_total_mass() {
+        // A -> B, B + C -> A + C, 2 B -> B + C: only A + B + C is conserved.
+        let columns = vec![
+            net_change(&[(0, 1.0)], &[(1, 1.0)]),
+            net_change(&[(1, 1.0), (2, 1.0)], &[(0, 1.0), (2, 1.0)]),
+            net_change(&[(1, 2.0)], &[(1, 1.0), (2, 1.0)]),
+        ];
+        let (laws, rank) = left_null_space(3, &columns);
+        assert_eq!(rank, 2);
+        assert_eq!(laws.len(), 1);
+        assert_eq!(laws[0].coefficients, vec![(0, 1.0), (1, 1.0), (2, 1.0)]);
+    }
+
+    #[test]
+    fn feed_breaks_conservation() {
+        let columns = vec![net_change(&[], &[(0, 1.0)]), net_change(&[(0, 1.0)], &[(1, 1.0)])];
+        let (laws, rank) = left_null_space(2, &columns);
+        assert_eq!((laws.len(), rank), (0, 2));
+    }
+
+    #[test]
+    fn dimerisation_weights_monomer_twice() {
+        // 2 A <=> B: A + 2 B is conserved.
+        let columns = vec![net_change(&[(0, 2.0)], &[(1, 1.0)])];
+        let (laws, _) = left_null_space(2, &columns);
+        assert_eq!(laws[0].coefficients, vec![(0, 1.0), (1, 2.0)]);
+    }
+}
