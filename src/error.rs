@@ -57,7 +57,10 @@ impl Error {
     /// command, 1 for a failure of the computation itself.
     pub fn exit_code(&self) -> u8 {
         match self {
-            Error::Input(_) | Error::OutputExists { .. } | Error::Option { .. } | Error::Read { .. } => 2,
+            Error::Input(_)
+            | Error::OutputExists { .. }
+            | Error::Option { .. }
+            | Error::Read { .. } => 2,
             Error::Write { .. } | Error::Integration { .. } => 1,
         }
     }

@@ -100,14 +100,18 @@ impl Trajectory {
     }
 
     pub fn last_state(&self) -> &[f64] {
-        self.states.last().expect("trajectory has the initial point")
+        self.states
+            .last()
+            .expect("trajectory has the initial point")
     }
 
     /// State at time t by cubic Hermite interpolation between accepted steps (clamped to the
     /// integrated span).
     pub fn state_at(&self, t: f64) -> Vec<f64> {
         let k = self.interval(t);
-        (0..self.states[0].len()).map(|i| self.hermite(k, i, t)).collect()
+        (0..self.states[0].len())
+            .map(|i| self.hermite(k, i, t))
+            .collect()
     }
 
     /// Concentration of species i at time t.
@@ -138,7 +142,10 @@ impl Trajectory {
         let (d0, d1) = (self.derivatives[k][i] * h, self.derivatives[k + 1][i] * h);
         let s2 = s * s;
         let s3 = s2 * s;
-        (2.0 * s3 - 3.0 * s2 + 1.0) * y0 + (s3 - 2.0 * s2 + s) * d0 + (-2.0 * s3 + 3.0 * s2) * y1 + (s3 - s2) * d1
+        (2.0 * s3 - 3.0 * s2 + 1.0) * y0
+            + (s3 - 2.0 * s2 + s) * d0
+            + (-2.0 * s3 + 3.0 * s2) * y1
+            + (s3 - s2) * d1
     }
 }
 
@@ -160,18 +167,66 @@ mod rodas4 {
     pub const A: [[f64; 5]; 6] = [
         [0.0; 5],
         [1.544, 0.0, 0.0, 0.0, 0.0],
-        [0.946_678_528_081_582_6, 0.255_701_169_898_328_4, 0.0, 0.0, 0.0],
-        [3.314_825_187_068_521, 2.896_124_015_972_201, 0.998_641_913_997_781_7, 0.0, 0.0],
-        [1.221_224_509_226_641, 6.019_134_481_288_629, 12.537_083_329_320_87, -0.687_886_036_105_895, 0.0],
-        [1.221_224_509_226_641, 6.019_134_481_288_629, 12.537_083_329_320_87, -0.687_886_036_105_895, 1.0],
+        [
+            0.946_678_528_081_582_6,
+            0.255_701_169_898_328_4,
+            0.0,
+            0.0,
+            0.0,
+        ],
+        [
+            3.314_825_187_068_521,
+            2.896_124_015_972_201,
+            0.998_641_913_997_781_7,
+            0.0,
+            0.0,
+        ],
+        [
+            1.221_224_509_226_641,
+            6.019_134_481_288_629,
+            12.537_083_329_320_87,
+            -0.687_886_036_105_895,
+            0.0,
+        ],
+        [
+            1.221_224_509_226_641,
+            6.019_134_481_288_629,
+            12.537_083_329_320_87,
+            -0.687_886_036_105_895,
+            1.0,
+        ],
     ];
     pub const C: [[f64; 5]; 6] = [
         [0.0; 5],
         [-5.6688, 0.0, 0.0, 0.0, 0.0],
-        [-2.430_093_356_833_875, -0.206_359_915_709_191_5, 0.0, 0.0, 0.0],
-        [-0.107_352_905_815_137_5, -9.594_562_251_023_355, -20.470_286_148_096_16, 0.0, 0.0],
-        [7.496_443_313_967_647, -10.246_804_314_643_52, -33.999_903_528_199_05, 11.708_908_932_061_6, 0.0],
-        [8.083_246_795_921_522, -7.981_132_988_064_893, -31.521_594_328_743_71, 16.319_305_431_231_36, -6.058_818_238_834_054],
+        [
+            -2.430_093_356_833_875,
+            -0.206_359_915_709_191_5,
+            0.0,
+            0.0,
+            0.0,
+        ],
+        [
+            -0.107_352_905_815_137_5,
+            -9.594_562_251_023_355,
+            -20.470_286_148_096_16,
+            0.0,
+            0.0,
+        ],
+        [
+            7.496_443_313_967_647,
+            -10.246_804_314_643_52,
+            -33.999_903_528_199_05,
+            11.708_908_932_061_6,
+            0.0,
+        ],
+        [
+            8.083_246_795_921_522,
+            -7.981_132_988_064_893,
+            -31.521_594_328_743_71,
+            16.319_305_431_231_36,
+            -6.058_818_238_834_054,
+        ],
     ];
 }
 
@@ -183,7 +238,12 @@ const MAX_SHRINK: f64 = 0.2;
 const EQUILIBRIUM_SCREEN: f64 = 1e4;
 
 /// Integrates the network from `c0`.
-pub fn integrate(model: &RateModel, laws: &[ConservationLaw], c0: &[f64], options: &Options) -> Result<Solution, Error> {
+pub fn integrate(
+    model: &RateModel,
+    laws: &[ConservationLaw],
+    c0: &[f64],
+    options: &Options,
+) -> Result<Solution, Error> {
     let started = Instant::now();
     let n = model.n_species();
     let mut stats = Stats {
@@ -193,7 +253,12 @@ pub fn integrate(model: &RateModel, laws: &[ConservationLaw], c0: &[f64], option
     let jac_pattern = model.pattern().clone();
     let diagonal = jac_pattern.diagonal_positions();
     let mut solver = LinearSolver::new(jac_pattern.clone(), options.force_dense);
-    stats.linear_solver = if solver.is_sparse() { "sparse LU" } else { "dense LU" }.into();
+    stats.linear_solver = if solver.is_sparse() {
+        "sparse LU"
+    } else {
+        "dense LU"
+    }
+    .into();
     let mut detector = EquilibriumDetector::new(&jac_pattern, laws, options.force_dense);
 
     let end = options.until.unwrap_or(options.max_time);
@@ -207,7 +272,9 @@ pub fn integrate(model: &RateModel, laws: &[ConservationLaw], c0: &[f64], option
         states: vec![y.clone()],
         derivatives: vec![f.clone()],
     };
-    let scale = |y0: &[f64], y1: &[f64], i: usize| options.atol[i] + options.rtol * y0[i].abs().max(y1[i].abs());
+    let scale = |y0: &[f64], y1: &[f64], i: usize| {
+        options.atol[i] + options.rtol * y0[i].abs().max(y1[i].abs())
+    };
     let mut h = initial_step(&y, &f, options, end);
     let mut jac = vec![0.0; jac_pattern.nnz()];
     let mut matrix = vec![0.0; jac_pattern.nnz()];
@@ -220,13 +287,25 @@ pub fn integrate(model: &RateModel, laws: &[ConservationLaw], c0: &[f64], option
     let mut rejected_last = false;
 
     let stop = loop {
-        let target = if options.until.is_some_and(|u| t < u) { options.until.unwrap_or(end) } else { options.max_time };
+        let target = if options.until.is_some_and(|u| t < u) {
+            options.until.unwrap_or(end)
+        } else {
+            options.max_time
+        };
         let done_until = options.until.is_none_or(|u| t >= u);
         if done_until && (!options.to_equilibrium || equilibrium_at.is_some()) {
-            break if options.until.is_some() { StopReason::ReachedTime } else { StopReason::Equilibrium };
+            break if options.until.is_some() {
+                StopReason::ReachedTime
+            } else {
+                StopReason::Equilibrium
+            };
         }
         if t >= options.max_time {
-            break if options.until.is_some_and(|u| u <= t) { StopReason::ReachedTime } else { StopReason::MaxTime };
+            break if options.until.is_some_and(|u| u <= t) {
+                StopReason::ReachedTime
+            } else {
+                StopReason::MaxTime
+            };
         }
         if stats.steps >= options.max_steps {
             break StopReason::MaxSteps;
@@ -290,13 +369,19 @@ pub fn integrate(model: &RateModel, laws: &[ConservationLaw], c0: &[f64], option
             err += e * e;
         }
         let err = (err / n as f64).sqrt();
-        let negative = (0..n).map(|i| y_new[i] / scale(&y, &y_new, i)).fold(0.0_f64, f64::min);
+        let negative = (0..n)
+            .map(|i| y_new[i] / scale(&y, &y_new, i))
+            .fold(0.0_f64, f64::min);
         if !err.is_finite() || negative < -1.0 {
             if err <= 1.0 && negative < -1.0 {
                 stats.negative_rejections += 1;
             }
             stats.rejected_steps += 1;
-            h *= if err.is_finite() && err > 1.0 { factor(err).min(1.0) } else { 0.25 };
+            h *= if err.is_finite() && err > 1.0 {
+                factor(err).min(1.0)
+            } else {
+                0.25
+            };
             rejected_last = true;
             continue;
         }
@@ -359,9 +444,25 @@ fn factor(err: f64) -> f64 {
 fn initial_step(y: &[f64], f: &[f64], options: &Options, end: f64) -> f64 {
     let n = y.len() as f64;
     let sc = |i: usize| options.atol[i] + options.rtol * y[i].abs();
-    let d0 = (y.iter().enumerate().map(|(i, v)| (v / sc(i)).powi(2)).sum::<f64>() / n).sqrt();
-    let d1 = (f.iter().enumerate().map(|(i, v)| (v / sc(i)).powi(2)).sum::<f64>() / n).sqrt();
-    let h = if d0 < 1e-5 || d1 < 1e-5 { 1e-6 } else { 0.01 * d0 / d1 };
+    let d0 = (y
+        .iter()
+        .enumerate()
+        .map(|(i, v)| (v / sc(i)).powi(2))
+        .sum::<f64>()
+        / n)
+        .sqrt();
+    let d1 = (f
+        .iter()
+        .enumerate()
+        .map(|(i, v)| (v / sc(i)).powi(2))
+        .sum::<f64>()
+        / n)
+        .sqrt();
+    let h = if d0 < 1e-5 || d1 < 1e-5 {
+        1e-6
+    } else {
+        0.01 * d0 / d1
+    };
     h.min(end).max(1e-12 * end.min(1.0))
 }
 
@@ -378,7 +479,11 @@ struct EquilibriumDetector {
 }
 
 impl EquilibriumDetector {
-    fn new(jac: &Pattern, laws: &[ConservationLaw], force_dense: Option<bool>) -> EquilibriumDetector {
+    fn new(
+        jac: &Pattern,
+        laws: &[ConservationLaw],
+        force_dense: Option<bool>,
+    ) -> EquilibriumDetector {
         let n = jac.n;
         let mut entries = Vec::new();
         for col in 0..n {
@@ -395,7 +500,10 @@ impl EquilibriumDetector {
         let pattern = Pattern::from_entries(n + laws.len(), entries);
         let mut values = vec![0.0; pattern.nnz()];
         for (l, law) in laws.iter().enumerate() {
-            let norm = law.coefficients.iter().fold(0.0_f64, |m, e| m.max(e.1.abs()));
+            let norm = law
+                .coefficients
+                .iter()
+                .fold(0.0_f64, |m, e| m.max(e.1.abs()));
             for &(i, c) in &law.coefficients {
                 values[pattern.position(n + l, i).expect("in pattern")] = c / norm;
                 values[pattern.position(i, n + l).expect("in pattern")] = c / norm;

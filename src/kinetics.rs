@@ -105,7 +105,11 @@ impl RateModel {
     pub fn step_rates(&self, c: &[f64], forward: &mut [f64], reverse: &mut [f64]) {
         for (j, step) in self.steps.iter().enumerate() {
             forward[j] = step.kf * product(&step.forward, c, None);
-            reverse[j] = if step.kr == 0.0 { 0.0 } else { step.kr * product(&step.reverse, c, None) };
+            reverse[j] = if step.kr == 0.0 {
+                0.0
+            } else {
+                step.kr * product(&step.reverse, c, None)
+            };
         }
     }
 
@@ -168,6 +172,10 @@ fn power(x: f64, a: f64, derivative: bool) -> f64 {
     if a.fract() == 0.0 && a.abs() < 64.0 {
         return x.powi(a as i32);
     }
-    let base = if derivative && a < 0.0 { x.max(FRACTIONAL_ORDER_FLOOR) } else { x.max(0.0) };
+    let base = if derivative && a < 0.0 {
+        x.max(FRACTIONAL_ORDER_FLOOR)
+    } else {
+        x.max(0.0)
+    };
     base.powf(a)
 }

@@ -4,9 +4,13 @@
 //! [`stoich::Stoichiometry`] and [`kinetics::RateModel`] are built, [`integrate`] runs the stiff
 //! integration, [`analysis`] derives time to equilibrium, and [`report`] writes the files.
 
+pub mod analysis;
+pub mod cli;
 pub mod error;
-pub mod network;
+pub mod integrate;
 pub mod kinetics;
 pub mod linalg;
+pub mod network;
+pub mod report;
+pub mod run;
 pub mod stoich;
-pub mod integrate;

@@ -45,7 +45,10 @@ impl Pattern {
     /// Position of entry (row, col) in the value array, if it is in the pattern.
     pub fn position(&self, row: usize, col: usize) -> Option<usize> {
         let range = self.col_ptr[col]..self.col_ptr[col + 1];
-        self.row_idx[range.clone()].binary_search(&row).ok().map(|k| range.start + k)
+        self.row_idx[range.clone()]
+            .binary_search(&row)
+            .ok()
+            .map(|k| range.start + k)
     }
 
     /// Positions of the diagonal entries (all must be present).
@@ -91,8 +94,13 @@ impl LinearSolver {
         let kind = if dense {
             Kind::Dense(None)
         } else {
-            let symbolic_matrix =
-                SymbolicSparseColMatRef::new_checked(pattern.n, pattern.n, &pattern.col_ptr, None, &pattern.row_idx);
+            let symbolic_matrix = SymbolicSparseColMatRef::new_checked(
+                pattern.n,
+                pattern.n,
+                &pattern.col_ptr,
+                None,
+                &pattern.row_idx,
+            );
             match SymbolicLu::try_new(symbolic_matrix) {
                 Ok(symbolic) => Kind::Sparse { symbolic, lu: None },
                 Err(_) => Kind::Dense(None),
@@ -127,7 +135,9 @@ impl LinearSolver {
                 let symbolic_matrix =
                     SymbolicSparseColMatRef::new_checked(p.n, p.n, &p.col_ptr, None, &p.row_idx);
                 let matrix = SparseColMatRef::new(symbolic_matrix, values);
-                *lu = Some(Lu::try_new_with_symbolic(symbolic.clone(), matrix).map_err(|_| Singular)?);
+                *lu = Some(
+                    Lu::try_new_with_symbolic(symbolic.clone(), matrix).map_err(|_| Singular)?,
+                );
             }
         }
         Ok(())
@@ -166,7 +176,15 @@ mod tests {
         let entries = vec![(0, 0), (1, 0), (0, 1), (1, 1), (2, 1), (1, 2), (2, 2)];
         let pattern = Pattern::from_entries(3, entries);
         let mut values = vec![0.0; pattern.nnz()];
-        for (r, c, v) in [(0, 0, 4.0), (1, 0, 1.0), (0, 1, 1.0), (1, 1, 3.0), (2, 1, 1.0), (1, 2, 1.0), (2, 2, 2.0)] {
+        for (r, c, v) in [
+            (0, 0, 4.0),
+            (1, 0, 1.0),
+            (0, 1, 1.0),
+            (1, 1, 3.0),
+            (2, 1, 1.0),
+            (1, 2, 1.0),
+            (2, 2, 2.0),
+        ] {
             values[pattern.position(r, c).unwrap()] = v;
         }
         for dense in [true, false] {

@@ -24,7 +24,10 @@ impl ConservationLaw {
 
     /// The size against which drift is judged: the sum of |l_i c_i|.
     pub fn magnitude(&self, y: &[f64]) -> f64 {
-        self.coefficients.iter().map(|&(i, c)| (c * y[i]).abs()).sum()
+        self.coefficients
+            .iter()
+            .map(|&(i, c)| (c * y[i]).abs())
+            .sum()
     }
 
     /// Human-readable form, e.g. `A + 2 C`.
@@ -88,7 +91,11 @@ impl Stoichiometry {
 /// products minus reactants, as sorted sparse entries with zeros dropped.
 pub fn net_change(reactants: &[(usize, f64)], products: &[(usize, f64)]) -> Vec<(usize, f64)> {
     let mut net: Vec<(usize, f64)> = Vec::new();
-    for (&(i, c), sign) in reactants.iter().map(|e| (e, -1.0)).chain(products.iter().map(|e| (e, 1.0))) {
+    for (&(i, c), sign) in reactants
+        .iter()
+        .map(|e| (e, -1.0))
+        .chain(products.iter().map(|e| (e, 1.0)))
+    {
         match net.iter_mut().find(|(j, _)| *j == i) {
             Some(entry) => entry.1 += sign * c,
             None => net.push((i, sign * c)),
@@ -110,12 +117,17 @@ fn left_null_space(n_species: usize, columns: &[Row]) -> (Vec<ConservationLaw>, 
     for column in columns {
         let mut row = column.clone();
         // Eliminate existing pivots; rows are fully reduced, so one pass suffices.
-        let hits: Vec<(usize, f64)> = row.iter().filter(|(c, _)| pivot_of[*c] != usize::MAX).copied().collect();
+        let hits: Vec<(usize, f64)> = row
+            .iter()
+            .filter(|(c, _)| pivot_of[*c] != usize::MAX)
+            .copied()
+            .collect();
         for (c, v) in hits {
             row = axpy(&row, -v, &pivot_rows[pivot_of[c]].1);
         }
         drop_small(&mut row);
-        let Some(&(pivot, value)) = row.iter().max_by(|a, b| a.1.abs().total_cmp(&b.1.abs())) else {
+        let Some(&(pivot, value)) = row.iter().max_by(|a, b| a.1.abs().total_cmp(&b.1.abs()))
+        else {
             continue;
         };
         for entry in row.iter_mut() {
@@ -178,11 +190,21 @@ fn drop_small(row: &mut Row) {
 /// Scales a law so its smallest coefficient has magnitude 1 and the leading one is positive,
 /// and snaps near-integers, so that `A + B + 2 C` reads as a chemist would write it.
 fn tidy(mut coefficients: Row) -> Row {
-    let smallest = coefficients.iter().fold(f64::INFINITY, |m, e| m.min(e.1.abs()));
-    let sign = if coefficients.iter().all(|e| e.1 <= 0.0) { -1.0 } else { 1.0 };
+    let smallest = coefficients
+        .iter()
+        .fold(f64::INFINITY, |m, e| m.min(e.1.abs()));
+    let sign = if coefficients.iter().all(|e| e.1 <= 0.0) {
+        -1.0
+    } else {
+        1.0
+    };
     for entry in coefficients.iter_mut() {
         let v = sign * entry.1 / smallest;
-        entry.1 = if (v - v.round()).abs() < 1e-9 { v.round() } else { v };
+        entry.1 = if (v - v.round()).abs() < 1e-9 {
+            v.round()
+        } else {
+            v
+        };
     }
     coefficients
 }
@@ -197,9 +219,18 @@ mod tests {
             for column in columns {
                 let dot: f64 = column
                     .iter()
-                    .map(|&(i, v)| v * law.coefficients.iter().find(|e| e.0 == i).map_or(0.0, |e| e.1))
+                    .map(|&(i, v)| {
+                        v * law
+                            .coefficients
+                            .iter()
+                            .find(|e| e.0 == i)
+                            .map_or(0.0, |e| e.1)
+                    })
                     .sum();
-                assert!(dot.abs() < 1e-12, "law {law:?} does not annihilate {column:?}");
+                assert!(
+                    dot.abs() < 1e-12,
+                    "law {law:?} does not annihilate {column:?}"
+                );
             }
         }
     }
@@ -230,7 +261,10 @@ mod tests {
 
     #[test]
     fn feed_breaks_conservation() {
-        let columns = vec![net_change(&[], &[(0, 1.0)]), net_change(&[(0, 1.0)], &[(1, 1.0)])];
+        let columns = vec![
+            net_change(&[], &[(0, 1.0)]),
+            net_change(&[(0, 1.0)], &[(1, 1.0)]),
+        ];
         let (laws, rank) = left_null_space(2, &columns);
         assert_eq!((laws.len(), rank), (0, 2));
     }

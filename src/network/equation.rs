@@ -70,7 +70,10 @@ fn split_terms(side: &str) -> Vec<&str> {
             continue;
         }
         let before = side[start..byte].trim();
-        let next = chars[pos + 1..].iter().map(|&(_, c)| c).find(|c| !c.is_whitespace());
+        let next = chars[pos + 1..]
+            .iter()
+            .map(|&(_, c)| c)
+            .find(|c| !c.is_whitespace());
         let starts_term =
             matches!(next, Some(n) if n.is_alphanumeric() || matches!(n, '(' | '[' | '.'));
         if !before.is_empty() && starts_term {
@@ -108,10 +111,14 @@ fn parse_term(term: &str) -> Result<(f64, String), String> {
     }
     let first = name.chars().next().unwrap_or(' ');
     if !(first.is_alphabetic() || first == '(' || first == '[') {
-        return Err(format!("`{name}` is not a species name: names start with a letter"));
+        return Err(format!(
+            "`{name}` is not a species name: names start with a letter"
+        ));
     }
     if name.chars().any(char::is_whitespace) {
-        return Err(format!("`{name}` has a space in it: separate terms with ` + `"));
+        return Err(format!(
+            "`{name}` has a space in it: separate terms with ` + `"
+        ));
     }
     Ok((coefficient, name.to_string()))
 }
@@ -146,7 +153,16 @@ mod tests {
 
     #[test]
     fn rejects_malformed() {
-        for bad in ["A B", "A -> B", "A + => B", " => B", "2 => B", "A <=> B <=> C", "0 => 0", "-1 A => B"] {
+        for bad in [
+            "A B",
+            "A -> B",
+            "A + => B",
+            " => B",
+            "2 => B",
+            "A <=> B <=> C",
+            "0 => 0",
+            "-1 A => B",
+        ] {
             assert!(parse_equation(bad).is_err(), "{bad} should be rejected");
         }
     }

@@ -120,10 +120,19 @@ type Value<'i> = Spanned<DeValue<'i>>;
 impl<'a> Reader<'a> {
     fn line_of(&self, offset: usize) -> usize {
         let end = offset.min(self.text.len());
-        self.text.as_bytes()[..end].iter().filter(|&&b| b == b'\n').count() + 1
+        self.text.as_bytes()[..end]
+            .iter()
+            .filter(|&&b| b == b'\n')
+            .count()
+            + 1
     }
 
-    fn error(&self, span: Option<Range<usize>>, field: &str, message: impl Into<String>) -> InputError {
+    fn error(
+        &self,
+        span: Option<Range<usize>>,
+        field: &str,
+        message: impl Into<String>,
+    ) -> InputError {
         InputError {
             file: self.file.to_path_buf(),
             line: span.map(|s| self.line_of(s.start)),
@@ -183,10 +192,18 @@ impl<'a> Reader<'a> {
 
     fn species(&self, value: Option<&Value<'_>>) -> Result<Vec<Species>, InputError> {
         let Some(value) = value else {
-            return Err(self.error(None, "species", "missing: list each species with its initial concentration under [species]"));
+            return Err(self.error(
+                None,
+                "species",
+                "missing: list each species with its initial concentration under [species]",
+            ));
         };
         let DeValue::Table(table) = value.get_ref() else {
-            return Err(self.error(Some(value.span()), "species", "must be a table: [species] then `A = 1.0` lines"));
+            return Err(self.error(
+                Some(value.span()),
+                "species",
+                "must be a table: [species] then `A = 1.0` lines",
+            ));
         };
         if table.is_empty() {
             return Err(self.error(Some(value.span()), "species", "the network has no species"));
@@ -245,15 +262,31 @@ impl<'a> Reader<'a> {
         Ok(species)
     }
 
-    fn reactions(&self, value: Option<&Value<'_>>, species: &[Species]) -> Result<Vec<Reaction>, InputError> {
+    fn reactions(
+        &self,
+        value: Option<&Value<'_>>,
+        species: &[Species],
+    ) -> Result<Vec<Reaction>, InputError> {
         let Some(value) = value else {
-            return Err(self.error(None, "reaction", "missing: add at least one [[reaction]] with an equation and kf"));
+            return Err(self.error(
+                None,
+                "reaction",
+                "missing: add at least one [[reaction]] with an equation and kf",
+            ));
         };
         let DeValue::Array(items) = value.get_ref() else {
-            return Err(self.error(Some(value.span()), "reaction", "must be written as [[reaction]] entries"));
+            return Err(self.error(
+                Some(value.span()),
+                "reaction",
+                "must be written as [[reaction]] entries",
+            ));
         };
         if items.is_empty() {
-            return Err(self.error(Some(value.span()), "reaction", "the network has no reactions"));
+            return Err(self.error(
+                Some(value.span()),
+                "reaction",
+                "the network has no reactions",
+            ));
         }
         items
             .iter()
@@ -262,9 +295,18 @@ impl<'a> Reader<'a> {
             .collect()
     }
 
-    fn reaction(&self, item: &Value<'_>, field: &str, species: &[Species]) -> Result<Reaction, InputError> {
+    fn reaction(
+        &self,
+        item: &Value<'_>,
+        field: &str,
+        species: &[Species],
+    ) -> Result<Reaction, InputError> {
         let DeValue::Table(table) = item.get_ref() else {
-            return Err(self.error(Some(item.span()), field, "must be a table with equation and kf"));
+            return Err(self.error(
+                Some(item.span()),
+                field,
+                "must be a table with equation and kf",
+            ));
         };
         let known = ["equation", "kf", "kr", "K", "orders", "reverse_orders"];
         for (key, _) in table.iter() {
@@ -278,11 +320,16 @@ impl<'a> Reader<'a> {
         }
         let eq_field = format!("{field}.equation");
         let Some(eq_value) = table.get("equation") else {
-            return Err(self.error(Some(item.span()), &eq_field, "missing: every reaction needs an equation such as \"A + B <=> C\""));
+            return Err(self.error(
+                Some(item.span()),
+                &eq_field,
+                "missing: every reaction needs an equation such as \"A + B <=> C\"",
+            ));
         };
         let equation = self.string(eq_value, &eq_field)?;
         let line = self.line_of(eq_value.span().start);
-        let parsed = parse_equation(equation).map_err(|m| self.error(Some(eq_value.span()), &eq_field, m))?;
+        let parsed = parse_equation(equation)
+            .map_err(|m| self.error(Some(eq_value.span()), &eq_field, m))?;
         let resolve = |side: &[(String, f64)]| -> Result<Vec<(usize, f64)>, InputError> {
             side.iter()
                 .map(|(name, coefficient)| {
@@ -317,44 +364,65 @@ impl<'a> Reader<'a> {
                 .transpose()
         };
         let kf = constant("kf")?.ok_or_else(|| {
-            self.error(Some(item.span()), &format!("{field}.kf"), "missing: every reaction needs a forward rate constant kf")
+            self.error(
+                Some(item.span()),
+                &format!("{field}.kf"),
+                "missing: every reaction needs a forward rate constant kf",
+            )
         })?;
         let kr_given = constant("kr")?;
         let k_given = constant("K")?;
-        let kr = if parsed.reversible {
-            match (kr_given, k_given) {
-                (Some(kr), _) => kr,
-                (None, Some(k)) => {
-                    if k <= 0.0 {
-                        return Err(self.error(table.get("K").map(|v| v.span()), &format!("{field}.K"), "must be positive"));
+        let kr =
+            if parsed.reversible {
+                match (kr_given, k_given) {
+                    (Some(kr), _) => kr,
+                    (None, Some(k)) => {
+                        if k <= 0.0 {
+                            return Err(self.error(
+                                table.get("K").map(|v| v.span()),
+                                &format!("{field}.K"),
+                                "must be positive",
+                            ));
+                        }
+                        kf / k
                     }
-                    kf / k
-                }
-                (None, None) => {
-                    return Err(self.error(
+                    (None, None) => return Err(self.error(
                         Some(eq_value.span()),
                         field,
                         "a reversible step (`<=>`) needs either kr or the equilibrium constant K",
-                    ))
+                    )),
                 }
-            }
-        } else {
-            if let Some(key) = ["kr", "K"].into_iter().find(|k| table.get(*k).is_some()) {
-                let sub = format!("{field}.{key}");
-                return Err(self.error(
-                    table.get(key).map(|v| v.span()),
-                    &sub,
-                    "a one-way step (`=>`) takes only kf; write `<=>` for a reversible step",
-                ));
-            }
-            0.0
-        };
-        let forward_orders = self.orders(table.get("orders"), &format!("{field}.orders"), &reactants, species)?;
+            } else {
+                if let Some(key) = ["kr", "K"].into_iter().find(|k| table.get(*k).is_some()) {
+                    let sub = format!("{field}.{key}");
+                    return Err(self.error(
+                        table.get(key).map(|v| v.span()),
+                        &sub,
+                        "a one-way step (`=>`) takes only kf; write `<=>` for a reversible step",
+                    ));
+                }
+                0.0
+            };
+        let forward_orders = self.orders(
+            table.get("orders"),
+            &format!("{field}.orders"),
+            &reactants,
+            species,
+        )?;
         let reverse_orders = if parsed.reversible {
-            self.orders(table.get("reverse_orders"), &format!("{field}.reverse_orders"), &products, species)?
+            self.orders(
+                table.get("reverse_orders"),
+                &format!("{field}.reverse_orders"),
+                &products,
+                species,
+            )?
         } else {
             if let Some(v) = table.get("reverse_orders") {
-                return Err(self.error(Some(v.span()), &format!("{field}.reverse_orders"), "a one-way step has no reverse rate"));
+                return Err(self.error(
+                    Some(v.span()),
+                    &format!("{field}.reverse_orders"),
+                    "a one-way step has no reverse rate",
+                ));
             }
             Vec::new()
         };
@@ -384,19 +452,38 @@ impl<'a> Reader<'a> {
         let mut orders: Vec<(usize, f64)> = side.to_vec();
         if let Some(value) = value {
             let DeValue::Table(table) = value.get_ref() else {
-                return Err(self.error(Some(value.span()), field, "must be a table such as { A = 0.5 }"));
+                return Err(self.error(
+                    Some(value.span()),
+                    field,
+                    "must be a table such as { A = 0.5 }",
+                ));
             };
             for (key, v) in table.iter() {
                 let sub = format!("{field}.{}", key.get_ref());
-                let Some(i) = species.iter().position(|s| s.name == key.get_ref().as_ref()) else {
-                    return Err(self.error(Some(key.span()), &sub, format!("unknown species `{}`", key.get_ref())));
+                let Some(i) = species
+                    .iter()
+                    .position(|s| s.name == key.get_ref().as_ref())
+                else {
+                    return Err(self.error(
+                        Some(key.span()),
+                        &sub,
+                        format!("unknown species `{}`", key.get_ref()),
+                    ));
                 };
                 if species[i].phase == Phase::Pure {
-                    return Err(self.error(Some(key.span()), &sub, "a pure solid or liquid has activity 1 and takes no order"));
+                    return Err(self.error(
+                        Some(key.span()),
+                        &sub,
+                        "a pure solid or liquid has activity 1 and takes no order",
+                    ));
                 }
                 let order = self.number(v, &sub)?;
                 if order < 0.0 {
-                    return Err(self.error(Some(v.span()), &sub, "negative orders are not supported"));
+                    return Err(self.error(
+                        Some(v.span()),
+                        &sub,
+                        "negative orders are not supported",
+                    ));
                 }
                 match orders.iter_mut().find(|(s, _)| *s == i) {
                     Some(entry) => entry.1 = order,
@@ -411,7 +498,11 @@ impl<'a> Reader<'a> {
     fn concentration(&self, value: &Value<'_>, field: &str) -> Result<f64, InputError> {
         let x = self.number(value, field)?;
         if x < 0.0 {
-            return Err(self.error(Some(value.span()), field, "a concentration must not be negative"));
+            return Err(self.error(
+                Some(value.span()),
+                field,
+                "a concentration must not be negative",
+            ));
         }
         Ok(x)
     }
@@ -419,13 +510,18 @@ impl<'a> Reader<'a> {
     /// A finite number (TOML integer or float).
     fn number(&self, value: &Value<'_>, field: &str) -> Result<f64, InputError> {
         let parsed = match value.get_ref() {
-            DeValue::Integer(i) => i64::from_str_radix(&i.as_str().replace('_', ""), i.radix()).ok().map(|i| i as f64),
+            DeValue::Integer(i) => i64::from_str_radix(&i.as_str().replace('_', ""), i.radix())
+                .ok()
+                .map(|i| i as f64),
             DeValue::Float(f) => f.as_str().replace('_', "").parse::<f64>().ok(),
             other => {
                 return Err(self.error(
                     Some(value.span()),
                     field,
-                    format!("expected a number, found {} (values are in mol/L, s and K)", other.type_str()),
+                    format!(
+                        "expected a number, found {} (values are in mol/L, s and K)",
+                        other.type_str()
+                    ),
                 ))
             }
         };
@@ -441,7 +537,11 @@ impl<'a> Reader<'a> {
                 Cow::Borrowed(b) => b,
                 Cow::Owned(o) => o.as_str(),
             }),
-            other => Err(self.error(Some(value.span()), field, format!("expected a string, found {}", other.type_str()))),
+            other => Err(self.error(
+                Some(value.span()),
+                field,
+                format!("expected a string, found {}", other.type_str()),
+            )),
         }
     }
 }
@@ -449,9 +549,14 @@ impl<'a> Reader<'a> {
 fn check_name(name: &str) -> Result<(), String> {
     let first = name.chars().next().unwrap_or(' ');
     if !(first.is_alphabetic() || first == '(' || first == '[') {
-        return Err(format!("`{name}` is not a species name: names start with a letter"));
+        return Err(format!(
+            "`{name}` is not a species name: names start with a letter"
+        ));
     }
-    if name.chars().any(|c| c.is_whitespace() || c == '=' || c == '<') {
+    if name
+        .chars()
+        .any(|c| c.is_whitespace() || c == '=' || c == '<')
+    {
         return Err(format!("`{name}` may not contain spaces, `=` or `<`"));
     }
     Ok(())

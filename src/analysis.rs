@@ -1,0 +1,135 @@
+//! What the trajectory means: time to equilibrium at each tolerance and conservation drift.
+//!
+//! Time to equilibrium at tolerance `tol` is the earliest time after which every species stays
+//! within `tol` of its total change from its equilibrium value:
+//! |c_i(t) − c_i,eq| ≤ tol · s_i for all later t, where s_i = |c_i,eq − c_i(0)|. A species whose
+//! total change is within noise (below 100 integration tolerances) but which moves on the way
+//! (an intermediate that returns to its start) is judged against its largest excursion instead;
+//! a species that never moves beyond noise is left out.
+
+use serde::Serialize;
+
+use crate::integrate::Trajectory;
+use crate::stoich::ConservationLaw;
+
+/// Default tolerances for time to equilibrium: 10 %, 1 % and 0.1 % of the total change.
+pub const DEFAULT_TOLERANCES: [f64; 3] = [0.1, 0.01, 0.001];
+
+/// Multiple of the integration tolerance below which a change is noise.
+const NOISE_MULTIPLE: f64 = 100.0;
+
+/// Time to equilibrium at one tolerance.
+#[derive(Debug, Clone, PartialEq, Serialize)]
+pub struct Settling {
+    pub tolerance: f64,
+    /// Seconds, or None when not reached within the integrated span.
+    pub seconds: Option<f64>,
+    /// The species that arrives last, by name.
+    pub limiting_species: Option<String>,
+}
+
+/// For each tolerance, the earliest time after which every species stays within the band.
+/// `equilibrium` is the reference composition; `noise` the integration tolerance per species.
+pub fn time_to_equilibrium(
+    trajectory: &Trajectory,
+    equilibrium: &[f64],
+    noise: &[f64],
+    tolerances: &[f64],
+    names: &[String],
+) -> Vec<Settling> {
+    let n = equilibrium.len();
+    let scales: Vec<Option<f64>> = (0..n)
+        .map(|i| {
+            let floor = NOISE_MULTIPLE * noise[i];
+            let total = (equilibrium[i] - trajectory.states[0][i]).abs();
+            let excursion = trajectory
+                .states
+                .iter()
+                .fold(0.0_f64, |m, s| m.max((s[i] - equilibrium[i]).abs()));
+            if total > floor {
+                Some(total)
+            } else if excursion > floor {
+                Some(excursion)
+            } else {
+                None
+            }
+        })
+        .collect();
+    tolerances
+        .iter()
+        .map(|&tol| {
+            // (time, species) of the species that settles last, or of the first one that never does.
+            let mut last: Option<(f64, usize)> = None;
+            let mut reached = true;
+            for (i, scale) in scales.iter().enumerate() {
+                let Some(scale) = scale else { continue };
+                match settle_time(trajectory, i, equilibrium[i], tol * scale) {
+                    Some(t) if last.is_none_or(|(worst, _)| t > worst) => last = Some((t, i)),
+                    Some(_) => {}
+                    None => {
+                        reached = false;
+                        last = Some((f64::NAN, i));
+                        break;
+                    }
+                }
+            }
+            Settling {
+                tolerance: tol,
+                seconds: if reached {
+                    Some(last.map_or(0.0, |(t, _)| t))
+                } else {
+                    None
+                },
+                limiting_species: last.and_then(|(_, i)| names.get(i).cloned()),
+            }
+        })
+        .collect()
+}
+
+/// Earliest time after which species i stays within `band` of `target`, or None if it is
+/// still outside at the end of the trajectory.
+fn settle_time(trajectory: &Trajectory, i: usize, target: f64, band: f64) -> Option<f64> {
+    let outside = |k: usize| (trajectory.states[k][i] - target).abs() > band;
+    let last = trajectory.states.len() - 1;
+    if outside(last) {
+        return None;
+    }
+    let Some(k) = (0..last).rev().find(|&k| outside(k)) else {
+        return Some(0.0);
+    };
+    // The crossing lies in (t_k, t_{k+1}]: bisect on the Hermite interpolant.
+    let (mut lo, mut hi) = (trajectory.times[k], trajectory.times[k + 1]);
+    for _ in 0..60 {
+        let mid = 0.5 * (lo + hi);
+        if (trajectory.value_at(i, mid) - target).abs() > band {
+            lo = mid;
+        } else {
+            hi = mid;
+        }
+    }
+    Some(hi)
+}
+
+/// Largest relative drift of each conservation total along the trajectory: |lᵀc(t) − lᵀc(0)|
+/// divided by Σ|l_i c_i(0)| (or by its largest value along the way when that is zero).
+pub fn conservation_drift(trajectory: &Trajectory, laws: &[ConservationLaw]) -> Vec<f64> {
+    laws.iter()
+        .map(|law| {
+            let start = law.total(&trajectory.states[0]);
+            let mut size = law.magnitude(&trajectory.states[0]);
+            if size == 0.0 {
+                size = trajectory
+                    .states
+                    .iter()
+                    .fold(0.0_f64, |m, s| m.max(law.magnitude(s)));
+            }
+            if size == 0.0 {
+                return 0.0;
+            }
+            trajectory
+                .states
+                .iter()
+                .fold(0.0_f64, |m, s| m.max((law.total(s) - start).abs() / size))
+        })
+        .collect()
+}

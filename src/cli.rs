@@ -1,0 +1,114 @@
+//! The command line: parse arguments, run, report. The only module that sees every layer.
+
+use std::path::PathBuf;
+
+use clap::{Parser, Subcommand};
+
+use crate::error::Error;
+use crate::network::Network;
+use crate::report;
+use crate::run::{self, RunSettings};
+
+#[derive(Debug, Parser)]
+#[command(
+    name = "kinequil",
+    version,
+    about = "Reversible reaction networks in closed batches: time to equilibrium, composition, tables and charts"
+)]
+pub struct Cli {
+    #[command(subcommand)]
+    pub command: Command,
+}
+
+#[derive(Debug, Subcommand)]
+pub enum Command {
+    /// Integrate a network to equilibrium (or to --until) and write summary, table and chart.
+    Run(RunArgs),
+}
+
+#[derive(Debug, clap::Args)]
+pub struct RunArgs {
+    /// The network file (TOML).
+    pub case: PathBuf,
+    /// Output folder [default: output/<case name>/].
+    #[arg(long, value_name = "DIR")]
+    pub out: Option<PathBuf>,
+    /// Report the state at this time in seconds (the run still finds time to equilibrium).
+    #[arg(long, value_name = "SECONDS")]
+    pub until: Option<f64>,
+    /// Add a tolerance for time to equilibrium, as a fraction of the total change (e.g. 0.05).
+    #[arg(long, value_name = "FRACTION")]
+    pub tol: Vec<f64>,
+    /// Relative integration tolerance.
+    #[arg(long, default_value_t = crate::integrate::DEFAULT_RTOL)]
+    pub rtol: f64,
+    /// Absolute integration tolerance in mol/L (species may set their own `atol` in the file).
+    #[arg(long, default_value_t = crate::integrate::DEFAULT_ATOL)]
+    pub atol: f64,
+    /// Replace results of an earlier run in the output folder.
+    #[arg(long)]
+    pub force: bool,
+}
+
+/// Runs the parsed command; returns what to print.
+pub fn execute(cli: Cli) -> Result<String, Error> {
+    match cli.command {
+        Command::Run(args) => run_command(args),
+    }
+}
+
+fn positive_fraction(option: &str, x: f64) -> Result<f64, Error> {
+    if x > 0.0 && x < 1.0 {
+        Ok(x)
+    } else {
+        Err(Error::Option {
+            option: option.into(),
+            message: format!("{x} is not a fraction between 0 and 1"),
+        })
+    }
+}
+
+fn run_command(args: RunArgs) -> Result<String, Error> {
+    let rtol = positive_fraction("--rtol", args.rtol)?;
+    if !(args.atol > 0.0 && args.atol.is_finite()) {
+        return Err(Error::Option {
+            option: "--atol".into(),
+            message: "must be a positive concentration in mol/L".into(),
+        });
+    }
+    let mut tolerances = crate::analysis::DEFAULT_TOLERANCES.to_vec();
+    for &t in &args.tol {
+        tolerances.push(positive_fraction("--tol", t)?);
+    }
+    tolerances.sort_by(|a, b| b.total_cmp(a));
+    tolerances.dedup();
+    let network = Network::from_file(&args.case)?;
+    let out = args
+        .out
+        .unwrap_or_else(|| PathBuf::from("output").join(network.case_name()));
+    // Refuse before the work, not after it, when earlier results are in the way.
+    if !args.force {
+        let existing: Vec<&str> = report::RUN_FILES
+            .iter()
+            .copied()
+            .filter(|f| out.join(f).exists())
+            .collect();
+        if !existing.is_empty() {
+            return Err(Error::OutputExists {
+                path: out,
+                existing: existing.join(", "),
+            });
+        }
+    }
+    let settings = RunSettings {
+        until: args.until,
+        tolerances,
+        rtol,
+        atol: args.atol,
+        force_dense: None,
+    };
+    let result = run::run(&network, &settings)?;
+    let files = report::render_run(&result)?;
+    let written = report::write_all(&out, &files, args.force)?;
+    Ok(report::terminal::render(&result, &written))
+}

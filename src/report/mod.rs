@@ -1,0 +1,102 @@
+//! Reports: the JSON summary, CSV tables, charts and the terminal summary, and the one place
+//! that writes files. Outputs are staged in a temporary folder and moved into place only when
+//! every file has been written, so a run leaves all of its files or none; earlier results are
+//! never replaced without `--force`.
+
+pub mod chart;
+pub mod summary;
+pub mod table;
+pub mod terminal;
+
+use std::fs;
+use std::path::{Path, PathBuf};
+
+use crate::error::Error;
+use crate::run::RunResult;
+
+/// The cautions every report carries.
+pub const CAUTIONS: [&str; 4] = [
+    "Isothermal, ideal model: constant temperature and volume, ideal mass-action kinetics, perfectly mixed batch.",
+    "No heat release, runaway, mixing or mass-transfer limits are modelled.",
+    "Verify results against plant and laboratory data before use.",
+    "Defer to process-safety review, local codes and licensed engineering practice for plant decisions.",
+];
+
+/// Names of the files a run writes.
+pub const RUN_FILES: [&str; 4] = [
+    "summary.json",
+    "trajectory.csv",
+    "concentrations.svg",
+    "concentrations.png",
+];
+
+/// Renders every output of a run in memory: (file name, contents).
+pub fn render_run(result: &RunResult) -> Result<Vec<(String, Vec<u8>)>, Error> {
+    let summary = summary::Summary::from_result(result);
+    let json = serde_json::to_string_pretty(&summary).map_err(|e| Error::Write {
+        path: "summary.json".into(),
+        message: e.to_string(),
+    })?;
+    let (svg, png) = chart::concentrations(result).map_err(|message| Error::Write {
+        path: "concentrations".into(),
+        message,
+    })?;
+    Ok(vec![
+        ("summary.json".into(), (json + "\n").into_bytes()),
+        (
+            "trajectory.csv".into(),
+            table::trajectory_csv(result).into_bytes(),
+        ),
+        ("concentrations.svg".into(), svg.into_bytes()),
+        ("concentrations.png".into(), png),
+    ])
+}
+
+/// Writes the files into `dir` all together: staged in a hidden folder inside `dir`, then
+/// renamed into place. Refuses when any of them exists already unless `force`.
+pub fn write_all(
+    dir: &Path,
+    files: &[(String, Vec<u8>)],
+    force: bool,
+) -> Result<Vec<PathBuf>, Error> {
+    let write_error = |path: &Path, e: std::io::Error| Error::Write {
+        path: path.to_path_buf(),
+        message: e.to_string(),
+    };
+    let existing: Vec<&str> = files
+        .iter()
+        .filter(|(name, _)| dir.join(name).exists())
+        .map(|(name, _)| name.as_str())
+        .collect();
+    if !existing.is_empty() && !force {
+        return Err(Error::OutputExists {
+            path: dir.to_path_buf(),
+            existing: existing.join(", "),
+        });
+    }
+    fs::create_dir_all(dir).map_err(|e| write_error(dir, e))?;
+    let staging = dir.join(format!(".kinequil-staging-{}", std::process::id()));
+    let staged = (|| -> Result<(), Error> {
+        fs::create_dir_all(&staging).map_err(|e| write_error(&staging, e))?;
+        for (name, bytes) in files {
+            let path = staging.join(name);
+            fs::write(&path, bytes).map_err(|e| write_error(&path, e))?;
+        }
+        Ok(())
+    })();
+    if let Err(e) = staged {
+        let _ = fs::remove_dir_all(&staging);
+        return Err(e);
+    }
+    let mut written = Vec::new();
+    for (name, _) in files {
+        let target = dir.join(name);
+        if let Err(e) = fs::rename(staging.join(name), &target) {
+            let _ = fs::remove_dir_all(&staging);
+            return Err(write_error(&target, e));
+        }
+        written.push(target);
+    }
+    let _ = fs::remove_dir_all(&staging);
+    Ok(written)
+}

@@ -1,0 +1,137 @@
+//! The JSON summary (`summary.json`): stable keys that scripts can rely on.
+
+use serde::Serialize;
+use serde_json::Map;
+
+use crate::analysis::Settling;
+use crate::integrate::{Stats, StopReason};
+use crate::run::RunResult;
+
+use super::CAUTIONS;
+
+#[derive(Debug, Serialize)]
+pub struct Summary {
+    pub tool: String,
+    pub version: String,
+    pub title: String,
+    pub input_file: String,
+    pub temperature_k: f64,
+    pub units: Units,
+    pub model: String,
+    pub cautions: Vec<String>,
+    /// Time of the reported state, s.
+    pub final_time: f64,
+    pub initial: Map<String, serde_json::Value>,
+    /// Composition at `final_time`, mol/L.
+    #[serde(rename = "final")]
+    pub final_state: Map<String, serde_json::Value>,
+    pub stop_reason: String,
+    pub equilibrium_detected_at: Option<f64>,
+    pub time_to_equilibrium: Vec<Settling>,
+    pub conservation: Conservation,
+    pub solver: Solver,
+    /// Most negative concentration met, as a multiple of its tolerance (0 when none).
+    pub worst_negative_over_tolerance: f64,
+}
+
+#[derive(Debug, Serialize)]
+pub struct Units {
+    pub time: &'static str,
+    pub concentration: &'static str,
+}
+
+#[derive(Debug, Serialize)]
+pub struct Conservation {
+    pub laws: Vec<Law>,
+    pub max_relative_drift: f64,
+}
+
+#[derive(Debug, Serialize)]
+pub struct Law {
+    pub expression: String,
+    pub coefficients: Map<String, serde_json::Value>,
+    pub total: f64,
+    pub max_relative_drift: f64,
+}
+
+#[derive(Debug, Serialize)]
+pub struct Solver {
+    #[serde(flatten)]
+    pub stats: Stats,
+    pub rtol: f64,
+    pub atol: Map<String, serde_json::Value>,
+}
+
+fn by_species(names: &[String], values: &[f64]) -> Map<String, serde_json::Value> {
+    names
+        .iter()
+        .zip(values)
+        .map(|(n, v)| (n.clone(), serde_json::json!(v)))
+        .collect()
+}
+
+pub fn stop_description(result: &RunResult) -> String {
+    match (result.solution.stop, result.solution.equilibrium_at) {
+        (StopReason::Equilibrium, Some(t)) => format!("equilibrium detected at {t:.6e} s"),
+        (StopReason::ReachedTime, Some(t)) => format!("reached the requested time; equilibrium detected at {t:.6e} s"),
+        (StopReason::ReachedTime, None) => "reached the requested time; equilibrium not detected".into(),
+        (StopReason::MaxTime, _) => format!(
+            "no equilibrium detected by {:.3e} s (the network may have no equilibrium: a one-way step, a feed or a sink)",
+            result.solution.trajectory.end_time()
+        ),
+        (StopReason::MaxSteps, _) => format!("step budget used up at {:.6e} s", result.solution.trajectory.end_time()),
+        (StopReason::Equilibrium, None) => "equilibrium detected".into(),
+    }
+}
+
+impl Summary {
+    pub fn from_result(result: &RunResult) -> Summary {
+        let names = result.species_names();
+        let trajectory = &result.solution.trajectory;
+        let laws = result
+            .stoichiometry
+            .conservation
+            .iter()
+            .zip(&result.drift)
+            .map(|(law, &drift)| Law {
+                expression: law.describe(&names),
+                coefficients: law
+                    .coefficients
+                    .iter()
+                    .map(|&(i, c)| (names[i].clone(), serde_json::json!(c)))
+                    .collect(),
+                total: law.total(&trajectory.states[0]),
+                max_relative_drift: drift,
+            })
+            .collect();
+        Summary {
+            tool: "kinequil".into(),
+            version: env!("CARGO_PKG_VERSION").into(),
+            title: result.network.title.clone(),
+            input_file: result.network.source.display().to_string(),
+            temperature_k: result.network.temperature,
+            units: Units {
+                time: "s",
+                concentration: "mol/L",
+            },
+            model: "isothermal, constant-volume batch; ideal mass-action kinetics".into(),
+            cautions: CAUTIONS.iter().map(|c| c.to_string()).collect(),
+            final_time: result.final_time,
+            initial: by_species(&names, &trajectory.states[0]),
+            final_state: by_species(&names, &result.final_state),
+            stop_reason: stop_description(result),
+            equilibrium_detected_at: result.solution.equilibrium_at,
+            time_to_equilibrium: result.settling.clone(),
+            conservation: Conservation {
+                laws,
+                max_relative_drift: result.drift.iter().fold(0.0, |m: f64, &d| m.max(d)),
+            },
+            solver: Solver {
+                stats: result.solution.stats.clone(),
+                rtol: result.settings.rtol,
+                atol: by_species(&names, &result.atol),
+            },
+            worst_negative_over_tolerance: -result.solution.worst_negative,
+        }
+    }
+}
