@@ -360,14 +360,14 @@ pub fn integrate(
             continue;
         }
         // Stiffly accurate: y1 = Y6 + u6, and u6 is the error estimate.
-        let mut err = 0.0;
         for i in 0..n {
             y_new[i] = y[i] + (0..5).map(|j| rodas4::A[5][j] * u[j][i]).sum::<f64>() + u[5][i];
         }
-        for i in 0..n {
-            let e = u[5][i] / scale(&y, &y_new, i);
-            err += e * e;
-        }
+        let err = u[5]
+            .iter()
+            .enumerate()
+            .map(|(i, e)| (e / scale(&y, &y_new, i)).powi(2))
+            .sum::<f64>();
         let err = (err / n as f64).sqrt();
         let negative = (0..n)
             .map(|i| y_new[i] / scale(&y, &y_new, i))

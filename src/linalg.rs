@@ -61,9 +61,9 @@ impl Pattern {
     /// y = A x for values `a` on this pattern.
     pub fn multiply(&self, a: &[f64], x: &[f64], y: &mut [f64]) {
         y.iter_mut().for_each(|v| *v = 0.0);
-        for col in 0..self.n {
+        for (col, &xc) in x.iter().enumerate().take(self.n) {
             for k in self.col_ptr[col]..self.col_ptr[col + 1] {
-                y[self.row_idx[k]] += a[k] * x[col];
+                y[self.row_idx[k]] += a[k] * xc;
             }
         }
     }
@@ -76,10 +76,10 @@ pub struct LinearSolver {
 }
 
 enum Kind {
-    Dense(Option<nalgebra::LU<f64, nalgebra::Dyn, nalgebra::Dyn>>),
+    Dense(Option<Box<nalgebra::LU<f64, nalgebra::Dyn, nalgebra::Dyn>>>),
     Sparse {
         symbolic: SymbolicLu<usize>,
-        lu: Option<Lu<usize, f64>>,
+        lu: Option<Box<Lu<usize, f64>>>,
     },
 }
 
@@ -129,15 +129,14 @@ impl LinearSolver {
                     *slot = None;
                     return Err(Singular);
                 }
-                *slot = Some(lu);
+                *slot = Some(Box::new(lu));
             }
             Kind::Sparse { symbolic, lu } => {
                 let symbolic_matrix =
                     SymbolicSparseColMatRef::new_checked(p.n, p.n, &p.col_ptr, None, &p.row_idx);
                 let matrix = SparseColMatRef::new(symbolic_matrix, values);
-                *lu = Some(
-                    Lu::try_new_with_symbolic(symbolic.clone(), matrix).map_err(|_| Singular)?,
-                );
+                let factored = Lu::try_new_with_symbolic(symbolic.clone(), matrix);
+                *lu = Some(Box::new(factored.map_err(|_| Singular)?));
             }
         }
         Ok(())

@@ -166,7 +166,7 @@ fn time_label(x: f64, log_time: bool) -> String {
             format!("{t:.2e}")
         }
     } else {
-        format!("{}", trim_number(x))
+        trim_number(x)
     }
 }
 

@@ -1,0 +1,124 @@
+//! Bad input is reported with the file, the line and the field, never with a panic.
+
+use std::path::Path;
+
+use kinequil::network::Network;
+
+/// (case, network text, expected line, expected field, a phrase the message must contain)
+const CASES: &[(&str, &str, Option<usize>, &str, &str)] = &[
+    (
+        "unknown species",
+        "[species]\nA = 1.0\n\n[[reaction]]\nequation = \"A <=> Q\"\nkf = 1.0\nkr = 1.0\n",
+        Some(5),
+        "reaction[1].equation",
+        "unknown species `Q`",
+    ),
+    (
+        "species listed twice",
+        "[species]\nA = 1.0\nA = 2.0\n",
+        Some(3),
+        "",
+        "duplicate key",
+    ),
+    (
+        "malformed equation",
+        "[species]\nA = 1.0\nB = 0.0\n\n[[reaction]]\nequation = \"A -> B\"\nkf = 1.0\n",
+        Some(6),
+        "reaction[1].equation",
+        "no arrow",
+    ),
+    (
+        "negative constant",
+        "[species]\nA = 1.0\nB = 0.0\n\n[[reaction]]\nequation = \"A => B\"\nkf = -2.0\n",
+        Some(7),
+        "reaction[1].kf",
+        "must not be negative",
+    ),
+    (
+        "NaN constant",
+        "[species]\nA = 1.0\nB = 0.0\n\n[[reaction]]\nequation = \"A => B\"\nkf = nan\n",
+        Some(7),
+        "reaction[1].kf",
+        "finite",
+    ),
+    (
+        "infinite constant",
+        "[species]\nA = 1.0\nB = 0.0\n\n[[reaction]]\nequation = \"A <=> B\"\nkf = 1.0\nkr = inf\n",
+        Some(8),
+        "reaction[1].kr",
+        "finite",
+    ),
+    (
+        "reversible step without kr or K",
+        "[species]\nA = 1.0\nB = 0.0\n\n[[reaction]]\nequation = \"A <=> B\"\nkf = 1.0\n",
+        Some(6),
+        "reaction[1]",
+        "either kr or the equilibrium constant K",
+    ),
+    (
+        "no species",
+        "[species]\n\n[[reaction]]\nequation = \"0 => A\"\nkf = 1.0\n",
+        Some(1),
+        "species",
+        "no species",
+    ),
+    (
+        "no reactions",
+        "[species]\nA = 1.0\n",
+        None,
+        "reaction",
+        "missing",
+    ),
+    (
+        "not TOML",
+        "this is not a network file\n",
+        Some(1),
+        "",
+        "not a valid TOML file",
+    ),
+    (
+        "negative initial concentration",
+        "[species]\nA = -1.0\n\n[[reaction]]\nequation = \"A => 0\"\nkf = 1.0\n",
+        Some(2),
+        "species.A",
+        "must not be negative",
+    ),
+    (
+        "text where a number belongs",
+        "[species]\nA = 1.0\n\n[[reaction]]\nequation = \"A => 0\"\nkf = \"fast\"\n",
+        Some(6),
+        "reaction[1].kf",
+        "expected a number",
+    ),
+    (
+        "misspelt key",
+        "[species]\nA = 1.0\n\n[[reaction]]\nequation = \"A => 0\"\nkff = 1.0\n",
+        Some(6),
+        "reaction[1].kff",
+        "unknown key",
+    ),
+    (
+        "kr on a one-way step",
+        "[species]\nA = 1.0\nB = 0.0\n\n[[reaction]]\nequation = \"A => B\"\nkf = 1.0\nkr = 1.0\n",
+        Some(8),
+        "reaction[1].kr",
+        "one-way",
+    ),
+];
+
+#[test]
+fn every_bad_input_names_file_line_and_field() {
+    for (case, text, line, field, phrase) in CASES {
+        let err = Network::from_text(text, Path::new("cases/bad.toml")).expect_err(case);
+        assert_eq!(err.file, Path::new("cases/bad.toml"), "{case}");
+        assert_eq!(err.line, *line, "{case}: {err}");
+        assert_eq!(err.field, *field, "{case}: {err}");
+        assert!(
+            err.message.contains(phrase),
+            "{case}: message was `{}`",
+            err.message
+        );
+        let shown = err.to_string();
+        assert!(shown.starts_with("cases/bad.toml"), "{case}: {shown}");
+    }
+}

@@ -1,0 +1,10 @@
+//! One integration-test binary (faster to build than one per file).
+
+mod util;
+
+mod analytic;
+mod cli;
+mod explicit_reference;
+mod input_errors;
+mod model;
+mod robertson;

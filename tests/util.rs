@@ -1,0 +1,42 @@
+//! Helpers shared by the integration tests.
+
+use std::path::Path;
+
+use kinequil::network::Network;
+use kinequil::run::{run, RunResult, RunSettings};
+
+/// Parses network text as if it came from `inline.toml`.
+pub fn network(text: &str) -> Network {
+    Network::from_text(text, Path::new("inline.toml"))
+        .unwrap_or_else(|e| panic!("test network invalid: {e}"))
+}
+
+/// Runs a network with the given tolerances.
+pub fn run_with(text: &str, rtol: f64, atol: f64, until: Option<f64>) -> RunResult {
+    let settings = RunSettings {
+        rtol,
+        atol,
+        until,
+        ..RunSettings::default()
+    };
+    run(&network(text), &settings).expect("run succeeds")
+}
+
+/// |a - b| / |b|.
+pub fn rel(a: f64, b: f64) -> f64 {
+    (a - b).abs() / b.abs()
+}
+
+/// A small seeded generator (SplitMix64) so random tests are reproducible without a crate.
+pub struct SplitMix(pub u64);
+
+impl SplitMix {
+    pub fn next_f64(&mut self) -> f64 {
+        self.0 = self.0.wrapping_add(0x9E37_79B9_7F4A_7C15);
+        let mut z = self.0;
+        z = (z ^ (z >> 30)).wrapping_mul(0xBF58_476D_1CE4_E5B9);
+        z = (z ^ (z >> 27)).wrapping_mul(0x94D0_49BB_1331_11EB);
+        z ^= z >> 31;
+        (z >> 11) as f64 / (1u64 << 53) as f64
+    }
+}
