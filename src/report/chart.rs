@@ -157,16 +157,19 @@ fn colour(k: usize) -> RGBColor {
     RGBColor(r, g, b)
 }
 
+/// Tick label for a time axis position: on a log axis only whole decades are labelled.
 fn time_label(x: f64, log_time: bool) -> String {
-    if log_time {
-        let t = 10f64.powf(x);
-        if (x - x.round()).abs() < 1e-9 {
-            format!("1e{}", x.round() as i64)
-        } else {
-            format!("{t:.2e}")
-        }
+    if !log_time {
+        return trim_number(x);
+    }
+    if (x - x.round()).abs() > 1e-6 {
+        return String::new();
+    }
+    let decade = x.round() as i32;
+    if (-3..=4).contains(&decade) {
+        trim_number(10f64.powi(decade))
     } else {
-        trim_number(x)
+        format!("1e{decade}")
     }
 }
 

@@ -100,3 +100,40 @@ pub fn write_all(
     let _ = fs::remove_dir_all(&staging);
     Ok(written)
 }
+
+/// Seconds with a friendlier unit beside them when the number is large.
+pub fn format_duration(seconds: f64) -> String {
+    let friendly = if seconds >= 86_400.0 * 2.0 {
+        format!(" ({:.2} d)", seconds / 86_400.0)
+    } else if seconds >= 3600.0 {
+        format!(" ({:.2} h)", seconds / 3600.0)
+    } else if seconds >= 120.0 {
+        format!(" ({:.1} min)", seconds / 60.0)
+    } else {
+        String::new()
+    };
+    format!("{} s{friendly}", significant(seconds))
+}
+
+/// Four significant figures, fixed or scientific as fits.
+pub fn significant(x: f64) -> String {
+    with_digits(x, 4)
+}
+
+/// `digits` significant figures: fixed notation between 1e-3 and 1e6, otherwise scientific with
+/// a signed two-digit exponent (2.083340e-08), which lines up in columns.
+pub fn with_digits(x: f64, digits: usize) -> String {
+    if x == 0.0 {
+        return "0".into();
+    }
+    if x.abs() >= 1e6 || x.abs() < 1e-3 {
+        let text = format!("{x:.prec$e}", prec = digits - 1);
+        let (mantissa, exponent) = text.split_once('e').unwrap_or((&text, "0"));
+        let exponent: i32 = exponent.parse().unwrap_or(0);
+        let sign = if exponent < 0 { '-' } else { '+' };
+        format!("{mantissa}e{sign}{:02}", exponent.abs())
+    } else {
+        let decimals = (digits as i32 - 1 - x.abs().log10().floor() as i32).max(0) as usize;
+        format!("{x:.decimals$}")
+    }
+}

@@ -7,7 +7,7 @@ use crate::analysis::Settling;
 use crate::integrate::{Stats, StopReason};
 use crate::run::RunResult;
 
-use super::CAUTIONS;
+use super::{format_duration, CAUTIONS};
 
 #[derive(Debug, Serialize)]
 pub struct Summary {
@@ -72,14 +72,14 @@ fn by_species(names: &[String], values: &[f64]) -> Map<String, serde_json::Value
 
 pub fn stop_description(result: &RunResult) -> String {
     match (result.solution.stop, result.solution.equilibrium_at) {
-        (StopReason::Equilibrium, Some(t)) => format!("equilibrium detected at {t:.6e} s"),
-        (StopReason::ReachedTime, Some(t)) => format!("reached the requested time; equilibrium detected at {t:.6e} s"),
+        (StopReason::Equilibrium, Some(t)) => format!("equilibrium detected at {}", format_duration(t)),
+        (StopReason::ReachedTime, Some(t)) => format!("reached the requested time; equilibrium detected at {}", format_duration(t)),
         (StopReason::ReachedTime, None) => "reached the requested time; equilibrium not detected".into(),
         (StopReason::MaxTime, _) => format!(
-            "no equilibrium detected by {:.3e} s (the network may have no equilibrium: a one-way step, a feed or a sink)",
-            result.solution.trajectory.end_time()
+            "no equilibrium detected by {} (the network may have no equilibrium: a one-way step, a feed or a sink)",
+            format_duration(result.solution.trajectory.end_time())
         ),
-        (StopReason::MaxSteps, _) => format!("step budget used up at {:.6e} s", result.solution.trajectory.end_time()),
+        (StopReason::MaxSteps, _) => format!("step budget used up at {}", format_duration(result.solution.trajectory.end_time())),
         (StopReason::Equilibrium, None) => "equilibrium detected".into(),
     }
 }

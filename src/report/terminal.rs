@@ -6,33 +6,7 @@ use std::path::PathBuf;
 use crate::run::RunResult;
 
 use super::summary::stop_description;
-use super::CAUTIONS;
-
-/// Seconds with a friendlier unit beside them when the number is large.
-pub fn format_duration(seconds: f64) -> String {
-    let friendly = if seconds >= 86_400.0 * 2.0 {
-        format!(" ({:.2} d)", seconds / 86_400.0)
-    } else if seconds >= 3600.0 {
-        format!(" ({:.2} h)", seconds / 3600.0)
-    } else if seconds >= 120.0 {
-        format!(" ({:.1} min)", seconds / 60.0)
-    } else {
-        String::new()
-    };
-    format!("{} s{friendly}", significant(seconds))
-}
-
-/// Four significant figures, fixed or scientific as fits.
-pub fn significant(x: f64) -> String {
-    if x == 0.0 {
-        "0".into()
-    } else if x.abs() >= 1e6 || x.abs() < 1e-3 {
-        format!("{x:.4e}")
-    } else {
-        let decimals = (3 - x.abs().log10().floor() as i32).max(0) as usize;
-        format!("{x:.decimals$}")
-    }
-}
+use super::{format_duration, significant, with_digits, CAUTIONS};
 
 pub fn render(result: &RunResult, files: &[PathBuf]) -> String {
     let mut out = String::new();
@@ -41,9 +15,10 @@ pub fn render(result: &RunResult, files: &[PathBuf]) -> String {
     let _ = writeln!(out, "kinequil {}: {}", env!("CARGO_PKG_VERSION"), net.title);
     let _ = writeln!(
         out,
-        "  {} species, {} reactions, {:.2} K, from {}",
+        "  {} species, {} reaction{}, {:.2} K, from {}",
         net.n_species(),
         net.reactions.len(),
+        if net.reactions.len() == 1 { "" } else { "s" },
         net.temperature,
         net.source.display()
     );
@@ -55,18 +30,21 @@ pub fn render(result: &RunResult, files: &[PathBuf]) -> String {
         "  {:<width$}  {:>14}  {:>14}  {:>14}",
         "species",
         "initial mol/L",
-        format!("t={}", significant(result.final_time)),
+        format!("at {} s", significant(result.final_time)),
         "equilibrium"
     );
     for (i, name) in names.iter().enumerate() {
         let eq = result
             .equilibrium
             .as_ref()
-            .map_or("-".to_string(), |e| format!("{:.6e}", e[i]));
+            .map_or("-".to_string(), |e| with_digits(e[i], 7));
         let _ = writeln!(
             out,
-            "  {:<width$}  {:>14.6e}  {:>14.6e}  {:>14}",
-            name, result.solution.trajectory.states[0][i], result.final_state[i], eq
+            "  {:<width$}  {:>14}  {:>14}  {:>14}",
+            name,
+            with_digits(result.solution.trajectory.states[0][i], 7),
+            with_digits(result.final_state[i], 7),
+            eq
         );
     }
     let _ = writeln!(out);
@@ -110,9 +88,9 @@ pub fn render(result: &RunResult, files: &[PathBuf]) -> String {
         for (law, drift) in laws.iter().zip(&result.drift) {
             let _ = writeln!(
                 out,
-                "    {} = {:.6e} mol/L   drift {:.1e}",
+                "    {} = {} mol/L   drift {:.1e}",
                 law.describe(&names),
-                law.total(&result.solution.trajectory.states[0]),
+                with_digits(law.total(&result.solution.trajectory.states[0]), 7),
                 drift
             );
         }
