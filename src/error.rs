@@ -35,10 +35,7 @@ pub enum Error {
     #[error("{0}")]
     Input(#[from] InputError),
     #[error("cannot read {path}: {source}")]
-    Read {
-        path: PathBuf,
-        source: std::io::Error,
-    },
+    Read { path: PathBuf, source: std::io::Error },
     #[error("cannot write {path}: {message}")]
     Write { path: PathBuf, message: String },
     #[error(
@@ -57,10 +54,7 @@ impl Error {
     /// command, 1 for a failure of the computation itself.
     pub fn exit_code(&self) -> u8 {
         match self {
-            Error::Input(_)
-            | Error::OutputExists { .. }
-            | Error::Option { .. }
-            | Error::Read { .. } => 2,
+            Error::Input(_) | Error::OutputExists { .. } | Error::Option { .. } | Error::Read { .. } => 2,
             Error::Write { .. } | Error::Integration { .. } => 1,
         }
     }

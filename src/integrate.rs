@@ -100,18 +100,14 @@ impl Trajectory {
     }
 
     pub fn last_state(&self) -> &[f64] {
-        self.states
-            .last()
-            .expect("trajectory has the initial point")
+        self.states.last().expect("trajectory has the initial point")
     }
 
     /// State at time t by cubic Hermite interpolation between accepted steps (clamped to the
     /// integrated span).
     pub fn state_at(&self, t: f64) -> Vec<f64> {
         let k = self.interval(t);
-        (0..self.states[0].len())
-            .map(|i| self.hermite(k, i, t))
-            .collect()
+        (0..self.states[0].len()).map(|i| self.hermite(k, i, t)).collect()
     }
 
     /// Concentration of species i at time t.
@@ -167,13 +163,7 @@ mod rodas4 {
     pub const A: [[f64; 5]; 6] = [
         [0.0; 5],
         [1.544, 0.0, 0.0, 0.0, 0.0],
-        [
-            0.946_678_528_081_582_6,
-            0.255_701_169_898_328_4,
-            0.0,
-            0.0,
-            0.0,
-        ],
+        [0.946_678_528_081_582_6, 0.255_701_169_898_328_4, 0.0, 0.0, 0.0],
         [
             3.314_825_187_068_521,
             2.896_124_015_972_201,
@@ -199,13 +189,7 @@ mod rodas4 {
     pub const C: [[f64; 5]; 6] = [
         [0.0; 5],
         [-5.6688, 0.0, 0.0, 0.0, 0.0],
-        [
-            -2.430_093_356_833_875,
-            -0.206_359_915_709_191_5,
-            0.0,
-            0.0,
-            0.0,
-        ],
+        [-2.430_093_356_833_875, -0.206_359_915_709_191_5, 0.0, 0.0, 0.0],
         [
             -0.107_352_905_815_137_5,
             -9.594_562_251_023_355,
@@ -272,9 +256,8 @@ pub fn integrate(
         states: vec![y.clone()],
         derivatives: vec![f.clone()],
     };
-    let scale = |y0: &[f64], y1: &[f64], i: usize| {
-        options.atol[i] + options.rtol * y0[i].abs().max(y1[i].abs())
-    };
+    let scale =
+        |y0: &[f64], y1: &[f64], i: usize| options.atol[i] + options.rtol * y0[i].abs().max(y1[i].abs());
     let mut h = initial_step(&y, &f, options, end);
     let mut jac = vec![0.0; jac_pattern.nnz()];
     let mut matrix = vec![0.0; jac_pattern.nnz()];
@@ -314,7 +297,9 @@ pub fn integrate(
         if h <= 1e-14 * t.max(1e-300) || !h.is_finite() {
             return Err(Error::Integration {
                 time: t,
-                reason: format!("step size fell to {h:.3e} s; the network may be ill-posed (check constants and orders)"),
+                reason: format!(
+                    "step size fell to {h:.3e} s; the network may be ill-posed (check constants and orders)"
+                ),
             });
         }
 
@@ -479,11 +464,7 @@ struct EquilibriumDetector {
 }
 
 impl EquilibriumDetector {
-    fn new(
-        jac: &Pattern,
-        laws: &[ConservationLaw],
-        force_dense: Option<bool>,
-    ) -> EquilibriumDetector {
+    fn new(jac: &Pattern, laws: &[ConservationLaw], force_dense: Option<bool>) -> EquilibriumDetector {
         let n = jac.n;
         let mut entries = Vec::new();
         for col in 0..n {
@@ -500,10 +481,7 @@ impl EquilibriumDetector {
         let pattern = Pattern::from_entries(n + laws.len(), entries);
         let mut values = vec![0.0; pattern.nnz()];
         for (l, law) in laws.iter().enumerate() {
-            let norm = law
-                .coefficients
-                .iter()
-                .fold(0.0_f64, |m, e| m.max(e.1.abs()));
+            let norm = law.coefficients.iter().fold(0.0_f64, |m, e| m.max(e.1.abs()));
             for &(i, c) in &law.coefficients {
                 values[pattern.position(n + l, i).expect("in pattern")] = c / norm;
                 values[pattern.position(i, n + l).expect("in pattern")] = c / norm;

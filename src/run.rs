@@ -55,11 +55,7 @@ pub struct RunResult {
 
 impl RunResult {
     pub fn species_names(&self) -> Vec<String> {
-        self.network
-            .species
-            .iter()
-            .map(|s| s.name.clone())
-            .collect()
+        self.network.species.iter().map(|s| s.name.clone()).collect()
     }
 }
 
@@ -97,9 +93,7 @@ pub fn run(network: &Network, settings: &RunSettings) -> Result<RunResult, Error
         _ => trajectory.end_time(),
     };
     let final_state = trajectory.state_at(final_time);
-    let equilibrium = solution
-        .equilibrium_at
-        .map(|_| trajectory.last_state().to_vec());
+    let equilibrium = solution.equilibrium_at.map(|_| trajectory.last_state().to_vec());
     let names: Vec<String> = network.species.iter().map(|s| s.name.clone()).collect();
     let settling = match &equilibrium {
         Some(eq) => {

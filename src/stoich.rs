@@ -24,10 +24,7 @@ impl ConservationLaw {
 
     /// The size against which drift is judged: the sum of |l_i c_i|.
     pub fn magnitude(&self, y: &[f64]) -> f64 {
-        self.coefficients
-            .iter()
-            .map(|&(i, c)| (c * y[i]).abs())
-            .sum()
+        self.coefficients.iter().map(|&(i, c)| (c * y[i]).abs()).sum()
     }
 
     /// Human-readable form, e.g. `A + 2 C`.
@@ -126,8 +123,7 @@ fn left_null_space(n_species: usize, columns: &[Row]) -> (Vec<ConservationLaw>, 
             row = axpy(&row, -v, &pivot_rows[pivot_of[c]].1);
         }
         drop_small(&mut row);
-        let Some(&(pivot, value)) = row.iter().max_by(|a, b| a.1.abs().total_cmp(&b.1.abs()))
-        else {
+        let Some(&(pivot, value)) = row.iter().max_by(|a, b| a.1.abs().total_cmp(&b.1.abs())) else {
             continue;
         };
         for entry in row.iter_mut() {
@@ -190,9 +186,7 @@ fn drop_small(row: &mut Row) {
 /// Scales a law so its smallest coefficient has magnitude 1 and the leading one is positive,
 /// and snaps near-integers, so that `A + B + 2 C` reads as a chemist would write it.
 fn tidy(mut coefficients: Row) -> Row {
-    let smallest = coefficients
-        .iter()
-        .fold(f64::INFINITY, |m, e| m.min(e.1.abs()));
+    let smallest = coefficients.iter().fold(f64::INFINITY, |m, e| m.min(e.1.abs()));
     let sign = if coefficients.iter().all(|e| e.1 <= 0.0) {
         -1.0
     } else {
@@ -219,18 +213,9 @@ mod tests {
             for column in columns {
                 let dot: f64 = column
                     .iter()
-                    .map(|&(i, v)| {
-                        v * law
-                            .coefficients
-                            .iter()
-                            .find(|e| e.0 == i)
-                            .map_or(0.0, |e| e.1)
-                    })
+                    .map(|&(i, v)| v * law.coefficients.iter().find(|e| e.0 == i).map_or(0.0, |e| e.1))
                     .sum();
-                assert!(
-                    dot.abs() < 1e-12,
-                    "law {law:?} does not annihilate {column:?}"
-                );
+                assert!(dot.abs() < 1e-12, "law {law:?} does not annihilate {column:?}");
             }
         }
     }
@@ -261,10 +246,7 @@ mod tests {
 
     #[test]
     fn feed_breaks_conservation() {
-        let columns = vec![
-            net_change(&[], &[(0, 1.0)]),
-            net_change(&[(0, 1.0)], &[(1, 1.0)]),
-        ];
+        let columns = vec![net_change(&[], &[(0, 1.0)]), net_change(&[(0, 1.0)], &[(1, 1.0)])];
         let (laws, rank) = left_null_space(2, &columns);
         assert_eq!((laws.len(), rank), (0, 2));
     }

@@ -47,11 +47,7 @@ fn first_order_reversible_follows_the_closed_form() {
         );
     }
     let eq = result.equilibrium.as_ref().expect("equilibrium detected");
-    assert!(
-        (eq[0] - 1.0 / 3.0).abs() < 1e-9,
-        "equilibrium A = {}",
-        eq[0]
-    );
+    assert!((eq[0] - 1.0 / 3.0).abs() < 1e-9, "equilibrium A = {}", eq[0]);
 }
 
 #[test]

@@ -27,12 +27,7 @@ fn bad_input_exits_2_naming_file_line_and_field() {
         "bad.toml",
         "[species]\nA = 1.0\n\n[[reaction]]\nequation = \"A <=> B\"\nkf = 1\nkr = 1\n",
     );
-    let out = kinequil(&[
-        "run",
-        &case,
-        "--out",
-        dir.path().join("o").to_str().unwrap(),
-    ]);
+    let out = kinequil(&["run", &case, "--out", dir.path().join("o").to_str().unwrap()]);
     assert_eq!(out.status.code(), Some(2));
     let stderr = String::from_utf8_lossy(&out.stderr);
     assert!(
@@ -40,10 +35,7 @@ fn bad_input_exits_2_naming_file_line_and_field() {
         "{stderr}"
     );
     assert!(!stderr.contains("panicked"));
-    assert!(
-        !dir.path().join("o").exists(),
-        "nothing is written for bad input"
-    );
+    assert!(!dir.path().join("o").exists(), "nothing is written for bad input");
 }
 
 #[test]
@@ -105,8 +97,7 @@ fn a_run_writes_all_outputs_and_never_overwrites_silently() {
     }
 
     let summary: serde_json::Value =
-        serde_json::from_str(&std::fs::read_to_string(out_dir.join("summary.json")).unwrap())
-            .unwrap();
+        serde_json::from_str(&std::fs::read_to_string(out_dir.join("summary.json")).unwrap()).unwrap();
     for key in [
         "final_time",
         "final",
@@ -158,8 +149,7 @@ fn a_run_writes_all_outputs_and_never_overwrites_silently() {
     let forced = kinequil(&["run", &case, "--out", out_str, "--until", "1.0", "--force"]);
     assert_eq!(forced.status.code(), Some(0));
     let summary: serde_json::Value =
-        serde_json::from_str(&std::fs::read_to_string(out_dir.join("summary.json")).unwrap())
-            .unwrap();
+        serde_json::from_str(&std::fs::read_to_string(out_dir.join("summary.json")).unwrap()).unwrap();
     assert_eq!(summary["final_time"].as_f64(), Some(1.0));
     // A at t = 1 s: 1/3 + 2/3 e^-3 (closed form); 1e-6 covers rtol 1e-6.
     let a1 = 1.0 / 3.0 + 2.0 / 3.0 * (-3.0f64).exp();

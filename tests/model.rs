@@ -85,13 +85,7 @@ fn every_conservation_law_annihilates_the_stoichiometry() {
         for column in &stoich.columns {
             let dot: f64 = column
                 .iter()
-                .map(|&(i, v)| {
-                    v * law
-                        .coefficients
-                        .iter()
-                        .find(|e| e.0 == i)
-                        .map_or(0.0, |e| e.1)
-                })
+                .map(|&(i, v)| v * law.coefficients.iter().find(|e| e.0 == i).map_or(0.0, |e| e.1))
                 .sum();
             assert!(dot.abs() < 1e-12);
         }

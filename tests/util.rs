@@ -7,8 +7,7 @@ use kinequil::run::{run, RunResult, RunSettings};
 
 /// Parses network text as if it came from `inline.toml`.
 pub fn network(text: &str) -> Network {
-    Network::from_text(text, Path::new("inline.toml"))
-        .unwrap_or_else(|e| panic!("test network invalid: {e}"))
+    Network::from_text(text, Path::new("inline.toml")).unwrap_or_else(|e| panic!("test network invalid: {e}"))
 }
 
 /// Runs a network with the given tolerances.

@@ -74,8 +74,7 @@ fn split_terms(side: &str) -> Vec<&str> {
             .iter()
             .map(|&(_, c)| c)
             .find(|c| !c.is_whitespace());
-        let starts_term =
-            matches!(next, Some(n) if n.is_alphanumeric() || matches!(n, '(' | '[' | '.'));
+        let starts_term = matches!(next, Some(n) if n.is_alphanumeric() || matches!(n, '(' | '[' | '.'));
         if !before.is_empty() && starts_term {
             terms.push(&side[start..byte]);
             start = byte + 1;
@@ -116,9 +115,7 @@ fn parse_term(term: &str) -> Result<(f64, String), String> {
         ));
     }
     if name.chars().any(char::is_whitespace) {
-        return Err(format!(
-            "`{name}` has a space in it: separate terms with ` + `"
-        ));
+        return Err(format!("`{name}` has a space in it: separate terms with ` + `"));
     }
     Ok((coefficient, name.to_string()))
 }

@@ -127,12 +127,7 @@ impl<'a> Reader<'a> {
             + 1
     }
 
-    fn error(
-        &self,
-        span: Option<Range<usize>>,
-        field: &str,
-        message: impl Into<String>,
-    ) -> InputError {
+    fn error(&self, span: Option<Range<usize>>, field: &str, message: impl Into<String>) -> InputError {
         InputError {
             file: self.file.to_path_buf(),
             line: span.map(|s| self.line_of(s.start)),
@@ -232,19 +227,17 @@ impl<'a> Reader<'a> {
                                 }
                                 item.atol = Some(atol);
                             }
-                            "phase" => {
-                                item.phase = match self.string(v, &sub)? {
-                                    "solution" | "dissolved" => Phase::Dissolved,
-                                    "solid" | "liquid" => Phase::Pure,
-                                    other => {
-                                        return Err(self.error(
-                                            Some(v.span()),
-                                            &sub,
-                                            format!("unknown phase `{other}`; use \"solution\", \"solid\" or \"liquid\""),
-                                        ))
-                                    }
-                                }
-                            }
+                            "phase" => item.phase = match self.string(v, &sub)? {
+                                "solution" | "dissolved" => Phase::Dissolved,
+                                "solid" | "liquid" => Phase::Pure,
+                                other => return Err(self.error(
+                                    Some(v.span()),
+                                    &sub,
+                                    format!(
+                                        "unknown phase `{other}`; use \"solution\", \"solid\" or \"liquid\""
+                                    ),
+                                )),
+                            },
                             other => {
                                 return Err(self.error(
                                     Some(prop.span()),
@@ -262,11 +255,7 @@ impl<'a> Reader<'a> {
         Ok(species)
     }
 
-    fn reactions(
-        &self,
-        value: Option<&Value<'_>>,
-        species: &[Species],
-    ) -> Result<Vec<Reaction>, InputError> {
+    fn reactions(&self, value: Option<&Value<'_>>, species: &[Species]) -> Result<Vec<Reaction>, InputError> {
         let Some(value) = value else {
             return Err(self.error(
                 None,
@@ -282,11 +271,7 @@ impl<'a> Reader<'a> {
             ));
         };
         if items.is_empty() {
-            return Err(self.error(
-                Some(value.span()),
-                "reaction",
-                "the network has no reactions",
-            ));
+            return Err(self.error(Some(value.span()), "reaction", "the network has no reactions"));
         }
         items
             .iter()
@@ -295,18 +280,9 @@ impl<'a> Reader<'a> {
             .collect()
     }
 
-    fn reaction(
-        &self,
-        item: &Value<'_>,
-        field: &str,
-        species: &[Species],
-    ) -> Result<Reaction, InputError> {
+    fn reaction(&self, item: &Value<'_>, field: &str, species: &[Species]) -> Result<Reaction, InputError> {
         let DeValue::Table(table) = item.get_ref() else {
-            return Err(self.error(
-                Some(item.span()),
-                field,
-                "must be a table with equation and kf",
-            ));
+            return Err(self.error(Some(item.span()), field, "must be a table with equation and kf"));
         };
         let known = ["equation", "kf", "kr", "K", "orders", "reverse_orders"];
         for (key, _) in table.iter() {
@@ -328,8 +304,7 @@ impl<'a> Reader<'a> {
         };
         let equation = self.string(eq_value, &eq_field)?;
         let line = self.line_of(eq_value.span().start);
-        let parsed = parse_equation(equation)
-            .map_err(|m| self.error(Some(eq_value.span()), &eq_field, m))?;
+        let parsed = parse_equation(equation).map_err(|m| self.error(Some(eq_value.span()), &eq_field, m))?;
         let resolve = |side: &[(String, f64)]| -> Result<Vec<(usize, f64)>, InputError> {
             side.iter()
                 .map(|(name, coefficient)| {
@@ -372,37 +347,38 @@ impl<'a> Reader<'a> {
         })?;
         let kr_given = constant("kr")?;
         let k_given = constant("K")?;
-        let kr =
-            if parsed.reversible {
-                match (kr_given, k_given) {
-                    (Some(kr), _) => kr,
-                    (None, Some(k)) => {
-                        if k <= 0.0 {
-                            return Err(self.error(
-                                table.get("K").map(|v| v.span()),
-                                &format!("{field}.K"),
-                                "must be positive",
-                            ));
-                        }
-                        kf / k
+        let kr = if parsed.reversible {
+            match (kr_given, k_given) {
+                (Some(kr), _) => kr,
+                (None, Some(k)) => {
+                    if k <= 0.0 {
+                        return Err(self.error(
+                            table.get("K").map(|v| v.span()),
+                            &format!("{field}.K"),
+                            "must be positive",
+                        ));
                     }
-                    (None, None) => return Err(self.error(
+                    kf / k
+                }
+                (None, None) => {
+                    return Err(self.error(
                         Some(eq_value.span()),
                         field,
                         "a reversible step (`<=>`) needs either kr or the equilibrium constant K",
-                    )),
+                    ))
                 }
-            } else {
-                if let Some(key) = ["kr", "K"].into_iter().find(|k| table.get(*k).is_some()) {
-                    let sub = format!("{field}.{key}");
-                    return Err(self.error(
-                        table.get(key).map(|v| v.span()),
-                        &sub,
-                        "a one-way step (`=>`) takes only kf; write `<=>` for a reversible step",
-                    ));
-                }
-                0.0
-            };
+            }
+        } else {
+            if let Some(key) = ["kr", "K"].into_iter().find(|k| table.get(*k).is_some()) {
+                let sub = format!("{field}.{key}");
+                return Err(self.error(
+                    table.get(key).map(|v| v.span()),
+                    &sub,
+                    "a one-way step (`=>`) takes only kf; write `<=>` for a reversible step",
+                ));
+            }
+            0.0
+        };
         let forward_orders = self.orders(
             table.get("orders"),
             &format!("{field}.orders"),
@@ -452,18 +428,11 @@ impl<'a> Reader<'a> {
         let mut orders: Vec<(usize, f64)> = side.to_vec();
         if let Some(value) = value {
             let DeValue::Table(table) = value.get_ref() else {
-                return Err(self.error(
-                    Some(value.span()),
-                    field,
-                    "must be a table such as { A = 0.5 }",
-                ));
+                return Err(self.error(Some(value.span()), field, "must be a table such as { A = 0.5 }"));
             };
             for (key, v) in table.iter() {
                 let sub = format!("{field}.{}", key.get_ref());
-                let Some(i) = species
-                    .iter()
-                    .position(|s| s.name == key.get_ref().as_ref())
-                else {
+                let Some(i) = species.iter().position(|s| s.name == key.get_ref().as_ref()) else {
                     return Err(self.error(
                         Some(key.span()),
                         &sub,
@@ -479,11 +448,7 @@ impl<'a> Reader<'a> {
                 }
                 let order = self.number(v, &sub)?;
                 if order < 0.0 {
-                    return Err(self.error(
-                        Some(v.span()),
-                        &sub,
-                        "negative orders are not supported",
-                    ));
+                    return Err(self.error(Some(v.span()), &sub, "negative orders are not supported"));
                 }
                 match orders.iter_mut().find(|(s, _)| *s == i) {
                     Some(entry) => entry.1 = order,
@@ -498,11 +463,7 @@ impl<'a> Reader<'a> {
     fn concentration(&self, value: &Value<'_>, field: &str) -> Result<f64, InputError> {
         let x = self.number(value, field)?;
         if x < 0.0 {
-            return Err(self.error(
-                Some(value.span()),
-                field,
-                "a concentration must not be negative",
-            ));
+            return Err(self.error(Some(value.span()), field, "a concentration must not be negative"));
         }
         Ok(x)
     }
@@ -553,10 +514,7 @@ fn check_name(name: &str) -> Result<(), String> {
             "`{name}` is not a species name: names start with a letter"
         ));
     }
-    if name
-        .chars()
-        .any(|c| c.is_whitespace() || c == '=' || c == '<')
-    {
+    if name.chars().any(|c| c.is_whitespace() || c == '=' || c == '<') {
         return Err(format!("`{name}` may not contain spaces, `=` or `<`"));
     }
     Ok(())

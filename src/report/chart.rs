@@ -96,17 +96,13 @@ fn active_span(result: &RunResult, times: &[f64]) -> (f64, f64) {
             hi - lo
         })
         .collect();
-    let moved =
-        |s: &Vec<f64>| (0..n).any(|i| range[i] > 0.0 && (s[i] - first[i]).abs() > 0.01 * range[i]);
-    let unsettled =
-        |s: &Vec<f64>| (0..n).any(|i| range[i] > 0.0 && (s[i] - last[i]).abs() > 0.01 * range[i]);
+    let moved = |s: &Vec<f64>| (0..n).any(|i| range[i] > 0.0 && (s[i] - first[i]).abs() > 0.01 * range[i]);
+    let unsettled = |s: &Vec<f64>| (0..n).any(|i| range[i] > 0.0 && (s[i] - last[i]).abs() > 0.01 * range[i]);
     let start = states.iter().position(moved).map_or(times[0], |k| times[k]);
     let end = states
         .iter()
         .rposition(unsettled)
-        .map_or(times[times.len() - 1], |k| {
-            times[(k + 1).min(times.len() - 1)]
-        });
+        .map_or(times[times.len() - 1], |k| times[(k + 1).min(times.len() - 1)]);
     (start, end)
 }
 
@@ -199,10 +195,7 @@ fn draw<DB: DrawingBackend>(root: &DrawingArea<DB, Shift>, plot: &Plot) -> Resul
         .margin(16)
         .x_label_area_size(48)
         .y_label_area_size(78)
-        .build_cartesian_2d(
-            plot.x_range.0..plot.x_range.1,
-            plot.y_range.0..plot.y_range.1,
-        )
+        .build_cartesian_2d(plot.x_range.0..plot.x_range.1, plot.y_range.0..plot.y_range.1)
         .map_err(fail)?;
     let log_time = plot.log_time;
     chart

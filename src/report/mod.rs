@@ -54,11 +54,7 @@ pub fn render_run(result: &RunResult) -> Result<Vec<(String, Vec<u8>)>, Error> {
 
 /// Writes the files into `dir` all together: staged in a hidden folder inside `dir`, then
 /// renamed into place. Refuses when any of them exists already unless `force`.
-pub fn write_all(
-    dir: &Path,
-    files: &[(String, Vec<u8>)],
-    force: bool,
-) -> Result<Vec<PathBuf>, Error> {
+pub fn write_all(dir: &Path, files: &[(String, Vec<u8>)], force: bool) -> Result<Vec<PathBuf>, Error> {
     let write_error = |path: &Path, e: std::io::Error| Error::Write {
         path: path.to_path_buf(),
         message: e.to_string(),

@@ -15,9 +15,7 @@ pub fn output_times(result: &RunResult) -> Vec<f64> {
     if let Some(&first) = steps.iter().find(|&&t| t > 0.0) {
         if first < end {
             let (a, b) = (first.ln(), end.ln());
-            times.extend(
-                (0..=GRID_POINTS).map(|k| (a + (b - a) * k as f64 / GRID_POINTS as f64).exp()),
-            );
+            times.extend((0..=GRID_POINTS).map(|k| (a + (b - a) * k as f64 / GRID_POINTS as f64).exp()));
         }
     }
     times.retain(|&t| t <= end);

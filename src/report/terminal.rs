@@ -99,7 +99,14 @@ pub fn render(result: &RunResult, files: &[PathBuf]) -> String {
     let _ = writeln!(
         out,
         "  solver: {}, {}; {} steps ({} rejected), {} rate evaluations, {} Jacobians, {} LU; {:.3} s",
-        st.method, st.linear_solver, st.steps, st.rejected_steps, st.rhs_evals, st.jacobian_evals, st.lu_factorizations, st.seconds
+        st.method,
+        st.linear_solver,
+        st.steps,
+        st.rejected_steps,
+        st.rhs_evals,
+        st.jacobian_evals,
+        st.lu_factorizations,
+        st.seconds
     );
     let _ = writeln!(
         out,
