@@ -4,6 +4,7 @@ mod util;
 
 mod analytic;
 mod cli;
+mod docs;
 mod explicit_reference;
 mod input_errors;
 mod model;

@@ -227,17 +227,21 @@ impl<'a> Reader<'a> {
                                 }
                                 item.atol = Some(atol);
                             }
-                            "phase" => item.phase = match self.string(v, &sub)? {
-                                "solution" | "dissolved" => Phase::Dissolved,
-                                "solid" | "liquid" => Phase::Pure,
-                                other => return Err(self.error(
-                                    Some(v.span()),
-                                    &sub,
-                                    format!(
+                            "phase" => {
+                                item.phase = match self.string(v, &sub)? {
+                                    "solution" | "dissolved" => Phase::Dissolved,
+                                    "solid" | "liquid" => Phase::Pure,
+                                    other => {
+                                        return Err(self.error(
+                                            Some(v.span()),
+                                            &sub,
+                                            format!(
                                         "unknown phase `{other}`; use \"solution\", \"solid\" or \"liquid\""
                                     ),
-                                )),
-                            },
+                                        ))
+                                    }
+                                }
+                            }
                             other => {
                                 return Err(self.error(
                                     Some(prop.span()),

@@ -1,0 +1,50 @@
+//! The documentation's examples stay true: the README's network file and every bundled case
+//! parse and run.
+
+use std::path::Path;
+
+use kinequil::network::Network;
+use kinequil::run::{run, RunSettings};
+
+#[test]
+fn readme_network_example_parses() {
+    let readme = std::fs::read_to_string(Path::new(env!("CARGO_MANIFEST_DIR")).join("README.md")).unwrap();
+    let start = readme.find("```toml\n").expect("README has a TOML example") + "```toml\n".len();
+    let end = start + readme[start..].find("```").unwrap();
+    let network = Network::from_text(&readme[start..end], Path::new("README.md"))
+        .unwrap_or_else(|e| panic!("README example does not parse: {e}"));
+    assert_eq!(network.reactions.len(), 2);
+    assert!(
+        (network.reactions[0].kr - 2.4e-4 / 4.2).abs() < 1e-18,
+        "kr = kf / K"
+    );
+}
+
+#[test]
+fn every_bundled_case_runs_to_a_result() {
+    let cases = Path::new(env!("CARGO_MANIFEST_DIR")).join("cases");
+    let mut count = 0;
+    for entry in std::fs::read_dir(cases).unwrap() {
+        let path = entry.unwrap().path();
+        if path.extension().is_some_and(|e| e == "toml") {
+            let network = Network::from_file(&path).unwrap_or_else(|e| panic!("{e}"));
+            let settings = RunSettings {
+                until: if network.case_name() == "robertson" {
+                    Some(1e11)
+                } else {
+                    None
+                },
+                ..RunSettings::default()
+            };
+            let result = run(&network, &settings).unwrap_or_else(|e| panic!("{}: {e}", path.display()));
+            assert!(
+                result.drift.iter().all(|d| *d < 1e-10),
+                "{}: drift {:?}",
+                path.display(),
+                result.drift
+            );
+            count += 1;
+        }
+    }
+    assert!(count >= 4, "expected the demo and the example cases");
+}
