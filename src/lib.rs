@@ -6,11 +6,13 @@
 
 pub mod analysis;
 pub mod cli;
+pub mod equilibrium;
 pub mod error;
 pub mod integrate;
 pub mod kinetics;
 pub mod linalg;
 pub mod network;
+pub mod relaxation;
 pub mod report;
 pub mod run;
 pub mod stoich;

@@ -2,10 +2,12 @@
 //! data for the reports.
 
 use crate::analysis::{self, Settling};
+use crate::equilibrium::{self, Equilibrium, NoEquilibrium};
 use crate::error::Error;
 use crate::integrate::{self, Options, Solution};
 use crate::kinetics::RateModel;
 use crate::network::Network;
+use crate::relaxation::{self, Mode};
 use crate::stoich::Stoichiometry;
 
 /// What the user asked for.
@@ -51,6 +53,18 @@ pub struct RunResult {
     pub settling: Vec<Settling>,
     /// Largest relative drift of each conservation total.
     pub drift: Vec<f64>,
+    /// The equilibrium solved directly, independent of the integration.
+    pub solved: Result<Equilibrium, NoEquilibrium>,
+    /// Largest relative difference between the integrated equilibrium and the solved one, over
+    /// species above 1e-9 of the largest concentration.
+    pub disagreement: Option<f64>,
+    /// True when the two routes differ by more than the tolerances in force allow.
+    pub disagrees: bool,
+    /// Relaxation modes at the solved equilibrium, slowest first.
+    pub relaxation: Result<Vec<Mode>, String>,
+    /// Per species, the fraction of its total change completed at `final_time` (None where the
+    /// species hardly changes or no equilibrium is known).
+    pub progress: Vec<Option<f64>>,
 }
 
 impl RunResult {
@@ -113,6 +127,29 @@ pub fn run(network: &Network, settings: &RunSettings) -> Result<RunResult, Error
             .collect(),
     };
     let drift = analysis::conservation_drift(trajectory, &stoichiometry.conservation);
+    let solved = equilibrium::solve(network, &stoichiometry);
+    let (disagreement, disagrees) = match (&equilibrium, &solved) {
+        (Some(integrated), Ok(exact)) => compare(integrated, &exact.concentrations, &atol, settings.rtol),
+        _ => (None, false),
+    };
+    let relaxation = match &solved {
+        Ok(exact) => relaxation::modes(network, &exact.concentrations),
+        Err(why) => Err(why.to_string()),
+    };
+    let reference = solved
+        .as_ref()
+        .ok()
+        .map(|e| e.concentrations.clone())
+        .or_else(|| equilibrium.clone());
+    let c0 = &trajectory.states[0];
+    let progress = (0..network.n_species())
+        .map(|i| {
+            let target = reference.as_ref()?[i];
+            let change = target - c0[i];
+            let noise = atol[i] + settings.rtol * target.abs();
+            (change.abs() > 100.0 * noise).then(|| (final_state[i] - c0[i]) / change)
+        })
+        .collect();
     Ok(RunResult {
         network: network.clone(),
         stoichiometry,
@@ -124,5 +161,29 @@ pub fn run(network: &Network, settings: &RunSettings) -> Result<RunResult, Error
         equilibrium,
         settling,
         drift,
+        solved,
+        disagreement,
+        disagrees,
+        relaxation,
+        progress,
     })
+}
+
+/// Largest relative difference over species above 1e-9 of the largest concentration, and whether
+/// any species differs by more than 100 times its integration tolerance (the global error of a
+/// long integration is a modest multiple of the local tolerance; common practice).
+fn compare(integrated: &[f64], solved: &[f64], atol: &[f64], rtol: f64) -> (Option<f64>, bool) {
+    let largest = solved.iter().fold(0.0_f64, |m, c| m.max(c.abs()));
+    let mut worst: f64 = 0.0;
+    let mut disagrees = false;
+    for i in 0..solved.len() {
+        let diff = (integrated[i] - solved[i]).abs();
+        if solved[i].abs() > 1e-9 * largest {
+            worst = worst.max(diff / solved[i].abs());
+        }
+        if diff > 100.0 * (atol[i] + rtol * solved[i].abs()) {
+            disagrees = true;
+        }
+    }
+    (Some(worst), disagrees)
 }

@@ -104,58 +104,121 @@ pub fn net_change(reactants: &[(usize, f64)], products: &[(usize, f64)]) -> Vec<
 }
 
 /// A sparse row: sorted (column, value) pairs.
-type Row = Vec<(usize, f64)>;
+pub type Row = Vec<(usize, f64)>;
 
-/// Basis of {l : lᵀN = 0} by incremental Gauss-Jordan on the rows of Nᵀ (one per reaction),
-/// keeping every pivot row free of the other pivot columns. Returns the basis and rank N.
-fn left_null_space(n_species: usize, columns: &[Row]) -> (Vec<ConservationLaw>, usize) {
-    let mut pivot_rows: Vec<(usize, Row)> = Vec::new(); // (pivot column, row with 1 at pivot)
-    let mut pivot_of = vec![usize::MAX; n_species];
-    for column in columns {
-        let mut row = column.clone();
-        // Eliminate existing pivots; rows are fully reduced, so one pass suffices.
+/// What became of a row offered to an [`Echelon`].
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub enum Insert {
+    /// The row was independent of the earlier ones and is now a pivot row.
+    Independent,
+    /// The row was a combination of earlier ones; `residual` is what is left of its right-hand
+    /// side (zero when the equations are consistent).
+    Dependent { residual: f64 },
+}
+
+/// Incremental sparse Gauss-Jordan elimination: rows (with an optional right-hand side) are
+/// offered one at a time; every pivot row is kept free of the other pivot columns, so a new row
+/// is reduced in one pass. Used for conservation laws (null space) and for solving the
+/// equilibrium-constant equations (consistency around cycles).
+#[derive(Debug, Clone)]
+pub struct Echelon {
+    n_cols: usize,
+    /// (pivot column, row with 1 at the pivot, right-hand side).
+    pivots: Vec<(usize, Row, f64)>,
+    pivot_of: Vec<usize>,
+}
+
+impl Echelon {
+    pub fn new(n_cols: usize) -> Echelon {
+        Echelon {
+            n_cols,
+            pivots: Vec::new(),
+            pivot_of: vec![usize::MAX; n_cols],
+        }
+    }
+
+    pub fn rank(&self) -> usize {
+        self.pivots.len()
+    }
+
+    pub fn insert(&mut self, row: &[(usize, f64)], rhs: f64) -> Insert {
+        let mut row: Row = row.to_vec();
+        row.sort_by_key(|e| e.0);
+        let mut rhs = rhs;
+        let scale = row.iter().fold(0.0_f64, |m, e| m.max(e.1.abs()));
         let hits: Vec<(usize, f64)> = row
             .iter()
-            .filter(|(c, _)| pivot_of[*c] != usize::MAX)
+            .filter(|(c, _)| self.pivot_of[*c] != usize::MAX)
             .copied()
             .collect();
         for (c, v) in hits {
-            row = axpy(&row, -v, &pivot_rows[pivot_of[c]].1);
+            let (_, pivot_row, pivot_rhs) = &self.pivots[self.pivot_of[c]];
+            row = axpy(&row, -v, pivot_row);
+            rhs -= v * pivot_rhs;
         }
-        drop_small(&mut row);
+        drop_small(&mut row, scale);
         let Some(&(pivot, value)) = row.iter().max_by(|a, b| a.1.abs().total_cmp(&b.1.abs())) else {
-            continue;
+            return Insert::Dependent { residual: rhs };
         };
         for entry in row.iter_mut() {
             entry.1 /= value;
         }
-        for (_, other) in pivot_rows.iter_mut() {
+        rhs /= value;
+        for (_, other, other_rhs) in self.pivots.iter_mut() {
             if let Ok(k) = other.binary_search_by_key(&pivot, |e| e.0) {
                 let v = other[k].1;
+                let other_scale = other.iter().fold(0.0_f64, |m, e| m.max(e.1.abs()));
                 *other = axpy(other, -v, &row);
-                drop_small(other);
+                *other_rhs -= v * rhs;
+                drop_small(other, other_scale);
             }
         }
-        pivot_of[pivot] = pivot_rows.len();
-        pivot_rows.push((pivot, row));
+        self.pivot_of[pivot] = self.pivots.len();
+        self.pivots.push((pivot, row, rhs));
+        Insert::Independent
     }
-    let rank = pivot_rows.len();
-    let laws = (0..n_species)
-        .filter(|&f| pivot_of[f] == usize::MAX)
-        .map(|free| {
-            let mut coefficients = vec![(free, 1.0)];
-            for (pivot, row) in &pivot_rows {
-                if let Ok(k) = row.binary_search_by_key(&free, |e| e.0) {
-                    coefficients.push((*pivot, -row[k].1));
+
+    /// A basis of the vectors x with row·x = 0 for every row inserted.
+    pub fn null_space(&self) -> Vec<Row> {
+        (0..self.n_cols)
+            .filter(|&f| self.pivot_of[f] == usize::MAX)
+            .map(|free| {
+                let mut x = vec![(free, 1.0)];
+                for (pivot, row, _) in &self.pivots {
+                    if let Ok(k) = row.binary_search_by_key(&free, |e| e.0) {
+                        x.push((*pivot, -row[k].1));
+                    }
                 }
-            }
-            coefficients.sort_by_key(|e| e.0);
-            ConservationLaw {
-                coefficients: tidy(coefficients),
-            }
+                x.sort_by_key(|e| e.0);
+                x
+            })
+            .collect()
+    }
+
+    /// One solution of row·x = rhs for every independent row, with the free columns at zero.
+    pub fn particular_solution(&self) -> Vec<f64> {
+        let mut x = vec![0.0; self.n_cols];
+        for (pivot, _, rhs) in &self.pivots {
+            x[*pivot] = *rhs;
+        }
+        x
+    }
+}
+
+/// Basis of {l : lᵀN = 0} from the rows of Nᵀ (one per reaction). Returns the basis and rank N.
+fn left_null_space(n_species: usize, columns: &[Row]) -> (Vec<ConservationLaw>, usize) {
+    let mut echelon = Echelon::new(n_species);
+    for column in columns {
+        echelon.insert(column, 0.0);
+    }
+    let laws = echelon
+        .null_space()
+        .into_iter()
+        .map(|coefficients| ConservationLaw {
+            coefficients: tidy(coefficients),
         })
         .collect();
-    (laws, rank)
+    (laws, echelon.rank())
 }
 
 /// a + s·b for sorted sparse rows.
@@ -178,9 +241,10 @@ fn axpy(a: &Row, s: f64, b: &Row) -> Row {
     out
 }
 
-fn drop_small(row: &mut Row) {
-    let largest = row.iter().fold(0.0_f64, |m, e| m.max(e.1.abs()));
-    row.retain(|e| e.1.abs() > DROP_TOL * largest.max(1.0));
+/// Drops entries that are rounding left over from cancellation, judged against the row's
+/// scale before the elimination.
+fn drop_small(row: &mut Row, scale: f64) {
+    row.retain(|e| e.1.abs() > DROP_TOL * scale);
 }
 
 /// Scales a law so its smallest coefficient has magnitude 1 and the leading one is positive,

@@ -5,6 +5,7 @@ use serde_json::Map;
 
 use crate::analysis::Settling;
 use crate::integrate::{Stats, StopReason};
+use crate::relaxation::Mode;
 use crate::run::RunResult;
 
 use super::{format_duration, CAUTIONS};
@@ -28,10 +29,41 @@ pub struct Summary {
     pub stop_reason: String,
     pub equilibrium_detected_at: Option<f64>,
     pub time_to_equilibrium: Vec<Settling>,
+    /// The equilibrium solved directly (species → mol/L), null where none exists.
+    pub equilibrium: Option<Map<String, serde_json::Value>>,
+    /// "solved", or why no equilibrium exists.
+    pub equilibrium_status: String,
+    pub equilibrium_solver: Option<EquilibriumSolver>,
+    /// Largest relative difference between the integrated end state and the solved equilibrium.
+    pub integrated_vs_solved_max_relative_difference: Option<f64>,
+    /// Whether the two routes agree within the tolerances in force (null when not compared).
+    pub routes_agree: Option<bool>,
+    /// Relaxation modes at equilibrium, slowest first.
+    pub relaxation: Vec<Mode>,
+    /// Why there are no relaxation modes, when there are none.
+    pub relaxation_note: Option<String>,
+    /// τ_slowest · ln(1/tol): the linearised estimate of time to equilibrium at each tolerance.
+    pub relaxation_estimates: Vec<Estimate>,
+    /// Per species, the fraction of its total change completed at `final_time`.
+    pub progress_at_final_time: Map<String, serde_json::Value>,
     pub conservation: Conservation,
     pub solver: Solver,
     /// Most negative concentration met, as a multiple of its tolerance (0 when none).
     pub worst_negative_over_tolerance: f64,
+}
+
+#[derive(Debug, Serialize)]
+pub struct EquilibriumSolver {
+    pub method: &'static str,
+    pub iterations: usize,
+    pub max_ln_k_residual: f64,
+    pub max_total_relative_residual: f64,
+}
+
+#[derive(Debug, Serialize)]
+pub struct Estimate {
+    pub tolerance: f64,
+    pub seconds: f64,
 }
 
 #[derive(Debug, Serialize)]
@@ -84,6 +116,22 @@ pub fn stop_description(result: &RunResult) -> String {
     }
 }
 
+/// τ_slowest · ln(1/tol) for each tolerance (empty without relaxation modes).
+pub fn relaxation_estimates(result: &RunResult) -> Vec<Estimate> {
+    let Some(slowest) = result.relaxation.as_ref().ok().and_then(|m| m.first()) else {
+        return Vec::new();
+    };
+    result
+        .settings
+        .tolerances
+        .iter()
+        .map(|&tolerance| Estimate {
+            tolerance,
+            seconds: slowest.tau_seconds * (1.0 / tolerance).ln(),
+        })
+        .collect()
+}
+
 impl Summary {
     pub fn from_result(result: &RunResult) -> Summary {
         let names = result.species_names();
@@ -122,6 +170,31 @@ impl Summary {
             stop_reason: stop_description(result),
             equilibrium_detected_at: result.solution.equilibrium_at,
             time_to_equilibrium: result.settling.clone(),
+            equilibrium: result
+                .solved
+                .as_ref()
+                .ok()
+                .map(|e| by_species(&names, &e.concentrations)),
+            equilibrium_status: match &result.solved {
+                Ok(_) => "solved".into(),
+                Err(why) => why.to_string(),
+            },
+            equilibrium_solver: result.solved.as_ref().ok().map(|e| EquilibriumSolver {
+                method: "Newton on the dual of the free-energy minimisation (log-concentrations)",
+                iterations: e.iterations,
+                max_ln_k_residual: e.max_k_residual,
+                max_total_relative_residual: e.max_total_residual,
+            }),
+            integrated_vs_solved_max_relative_difference: result.disagreement,
+            routes_agree: result.disagreement.map(|_| !result.disagrees),
+            relaxation: result.relaxation.clone().unwrap_or_default(),
+            relaxation_note: result.relaxation.as_ref().err().cloned(),
+            relaxation_estimates: relaxation_estimates(result),
+            progress_at_final_time: names
+                .iter()
+                .zip(&result.progress)
+                .map(|(n, p)| (n.clone(), serde_json::json!(p)))
+                .collect(),
             conservation: Conservation {
                 laws,
                 max_relative_drift: result.drift.iter().fold(0.0, |m: f64, &d| m.max(d)),

@@ -5,8 +5,11 @@ use std::path::PathBuf;
 
 use crate::run::RunResult;
 
-use super::summary::stop_description;
+use super::summary::{relaxation_estimates, stop_description};
 use super::{format_duration, significant, with_digits, CAUTIONS};
+
+/// Relaxation modes listed on the terminal (all of them are in summary.json).
+const MODES_SHOWN: usize = 5;
 
 pub fn render(result: &RunResult, files: &[PathBuf]) -> String {
     let mut out = String::new();
@@ -34,10 +37,11 @@ pub fn render(result: &RunResult, files: &[PathBuf]) -> String {
         "equilibrium"
     );
     for (i, name) in names.iter().enumerate() {
-        let eq = result
-            .equilibrium
-            .as_ref()
-            .map_or("-".to_string(), |e| with_digits(e[i], 7));
+        let eq = match (&result.solved, &result.equilibrium) {
+            (Ok(solved), _) => with_digits(solved.concentrations[i], 7),
+            (Err(_), Some(integrated)) => with_digits(integrated[i], 7),
+            (Err(_), None) => "-".to_string(),
+        };
         let _ = writeln!(
             out,
             "  {:<width$}  {:>14}  {:>14}  {:>14}",
@@ -48,28 +52,25 @@ pub fn render(result: &RunResult, files: &[PathBuf]) -> String {
         );
     }
     let _ = writeln!(out);
-    let _ = writeln!(
-        out,
-        "  time to equilibrium (every species within the fraction of its total change):"
-    );
-    for s in &result.settling {
-        let when = match (s.seconds, &s.limiting_species) {
-            (Some(t), Some(sp)) => format!("{}, last to settle: {sp}", format_duration(t)),
-            (Some(t), None) => format_duration(t),
-            (None, _) => "not reached".into(),
-        };
-        let _ = writeln!(
-            out,
-            "    within {:>7}: {when}",
-            format!("{}%", trim_percent(s.tolerance))
-        );
-    }
+    write_agreement(&mut out, result);
+    let _ = writeln!(out);
+    write_settling(&mut out, result);
+    write_relaxation(&mut out, result);
     if let Some(until) = result.settings.until {
         let _ = writeln!(
             out,
-            "  state reported at the requested time {}",
+            "  at the requested time {}, share of each species' total change completed:",
             format_duration(until)
         );
+        let parts: Vec<String> = names
+            .iter()
+            .zip(&result.progress)
+            .map(|(n, p)| match p {
+                Some(p) => format!("{n} {:.1}%", 100.0 * p),
+                None => format!("{n} -"),
+            })
+            .collect();
+        let _ = writeln!(out, "    {}", parts.join(", "));
     }
     let _ = writeln!(out);
     let laws = &result.stoichiometry.conservation;
@@ -125,6 +126,88 @@ pub fn render(result: &RunResult, files: &[PathBuf]) -> String {
         let _ = writeln!(out, "    - {c}");
     }
     out
+}
+
+/// Whether the integrated end state and the directly solved equilibrium agree.
+fn write_agreement(out: &mut String, result: &RunResult) {
+    let _ = match (&result.solved, result.disagreement) {
+        (Ok(_), Some(diff)) if result.disagrees => writeln!(
+            out,
+            "  WARNING: the integrated end state and the directly solved equilibrium differ by up to \
+             {diff:.2e} (relative), more than the tolerances allow; tighten --rtol/--atol or check the constants"
+        ),
+        (Ok(solved), Some(diff)) => writeln!(
+            out,
+            "  equilibrium solved directly ({} Newton iterations); the integration agrees to {diff:.1e} (relative)",
+            solved.iterations
+        ),
+        (Ok(solved), None) => writeln!(
+            out,
+            "  equilibrium solved directly ({} Newton iterations)",
+            solved.iterations
+        ),
+        (Err(why), _) => writeln!(out, "  equilibrium: {why}"),
+    };
+}
+
+fn write_settling(out: &mut String, result: &RunResult) {
+    let _ = writeln!(
+        out,
+        "  time to equilibrium (every species within the fraction of its total change):"
+    );
+    let estimates = relaxation_estimates(result);
+    for s in &result.settling {
+        let when = match (s.seconds, &s.limiting_species) {
+            (Some(t), Some(sp)) => format!("{}, last to settle: {sp}", format_duration(t)),
+            (Some(t), None) => format_duration(t),
+            (None, _) => "not reached".into(),
+        };
+        let estimate = estimates
+            .iter()
+            .find(|e| e.tolerance == s.tolerance)
+            .map_or(String::new(), |e| {
+                format!("   [τ·ln(1/tol) = {}]", format_duration(e.seconds))
+            });
+        let percent = format!("{}%", trim_percent(s.tolerance));
+        let _ = writeln!(out, "    within {percent:>7}: {when}{estimate}");
+    }
+}
+
+fn write_relaxation(out: &mut String, result: &RunResult) {
+    match &result.relaxation {
+        Ok(modes) if !modes.is_empty() => {
+            let _ = writeln!(
+                out,
+                "  relaxation times at equilibrium (slowest first; the steps that set each, with their share):"
+            );
+            for mode in modes.iter().take(MODES_SHOWN) {
+                let species: Vec<&str> = mode.species.iter().map(|s| s.name.as_str()).collect();
+                let steps: Vec<String> = mode
+                    .steps
+                    .iter()
+                    .map(|s| format!("{} ({:.0}%)", s.name, 100.0 * s.share))
+                    .collect();
+                let _ = writeln!(
+                    out,
+                    "    τ = {:<20} moves {}; set by {}",
+                    format_duration(mode.tau_seconds),
+                    species.join(", "),
+                    steps.join(", ")
+                );
+            }
+            if modes.len() > MODES_SHOWN {
+                let _ = writeln!(
+                    out,
+                    "    ... and {} faster modes (all in summary.json)",
+                    modes.len() - MODES_SHOWN
+                );
+            }
+        }
+        Ok(_) => {}
+        Err(why) => {
+            let _ = writeln!(out, "  relaxation analysis: {why}");
+        }
+    }
 }
 
 fn trim_percent(fraction: f64) -> String {

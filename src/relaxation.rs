@@ -1,0 +1,139 @@
+//! Relaxation analysis: the network linearised at equilibrium.
+//!
+//! Near a detailed-balance equilibrium c*, mass-action kinetics linearise to
+//! dδ/dt = −N R Nᵀ C⁻¹ δ, with R = diag(r_j) the (equal) forward and reverse rates of each step
+//! at equilibrium and C = diag(c*). With B = C^(−1/2) N R^(1/2) the matrix is similar to −B Bᵀ, so
+//! the relaxation rates are the squared singular values of B and the relaxation times are
+//! τ = 1/σ². The left singular vector gives the species that move in the mode (δc = C^(1/2) u);
+//! the right singular vector v gives each step's share v_j² of the mode's rate, so the steps with
+//! the largest share are the ones that limit it. Zero modes (conservation laws) are left out by
+//! keeping exactly rank(N) singular values. Working with singular values rather than eigenvalues
+//! keeps time scales twenty decades apart distinguishable.
+
+use serde::Serialize;
+
+use crate::network::{Network, Phase};
+use crate::stoich::Echelon;
+
+/// Above this many species the dense singular value decomposition is skipped.
+pub const MAX_SPECIES: usize = 1500;
+
+/// One relaxation mode.
+#[derive(Debug, Clone, PartialEq, Serialize)]
+pub struct Mode {
+    pub tau_seconds: f64,
+    /// Species that move in this mode with their share of the displacement (largest first).
+    pub species: Vec<Share>,
+    /// Steps with their share of the mode's rate (largest first): the ones that limit it.
+    pub steps: Vec<Share>,
+}
+
+#[derive(Debug, Clone, PartialEq, Serialize)]
+pub struct Share {
+    pub name: String,
+    pub share: f64,
+}
+
+/// Modes slowest first, at the equilibrium `c_eq`; an explanation when the analysis does not
+/// apply.
+pub fn modes(network: &Network, c_eq: &[f64]) -> Result<Vec<Mode>, String> {
+    let positive: Vec<usize> = (0..network.n_species())
+        .filter(|&i| network.species[i].phase == Phase::Dissolved && c_eq[i] > 0.0)
+        .collect();
+    if positive.len() > MAX_SPECIES {
+        return Err(format!("relaxation analysis is limited to {MAX_SPECIES} species"));
+    }
+    let mut column_of = vec![usize::MAX; network.n_species()];
+    for (k, &i) in positive.iter().enumerate() {
+        column_of[i] = k;
+    }
+    // Steps that are active at equilibrium, with their equilibrium rate.
+    let mut steps = Vec::new();
+    for r in &network.reactions {
+        if !(r.reversible && r.kf > 0.0 && r.kr > 0.0) {
+            if r.kf > 0.0 {
+                return Err("relaxation analysis needs an equilibrium: the network has one-way steps".into());
+            }
+            continue;
+        }
+        if r.forward_orders
+            .iter()
+            .chain(&r.reverse_orders)
+            .any(|e| column_of[e.0] == usize::MAX)
+        {
+            continue; // a species held at zero: the step is idle at equilibrium
+        }
+        let rate: f64 = r.kf
+            * r.forward_orders
+                .iter()
+                .map(|&(i, a)| c_eq[i].powf(a))
+                .product::<f64>();
+        let net = crate::stoich::net_change(&r.reactants, &r.products);
+        let column: Vec<(usize, f64)> = net
+            .iter()
+            .filter(|e| column_of[e.0] != usize::MAX)
+            .map(|e| (column_of[e.0], e.1))
+            .collect();
+        steps.push((r.equation.clone(), rate, column));
+    }
+    let n = positive.len();
+    let mut echelon = Echelon::new(n);
+    for (_, _, column) in &steps {
+        echelon.insert(column, 0.0);
+    }
+    let rank = echelon.rank();
+    if rank == 0 {
+        return Ok(Vec::new());
+    }
+    let mut b = nalgebra::DMatrix::<f64>::zeros(n, steps.len());
+    for (j, (_, rate, column)) in steps.iter().enumerate() {
+        for &(k, v) in column {
+            b[(k, j)] = v * rate.sqrt() / c_eq[positive[k]].sqrt();
+        }
+    }
+    let svd = b.svd(true, true);
+    let (Some(u), Some(v_t)) = (svd.u, svd.v_t) else {
+        return Err("singular value decomposition failed".into());
+    };
+    let mut order: Vec<usize> = (0..svd.singular_values.len()).collect();
+    order.sort_by(|&x, &y| svd.singular_values[y].total_cmp(&svd.singular_values[x]));
+    order.truncate(rank);
+    let mut modes: Vec<Mode> = order
+        .iter()
+        .map(|&k| {
+            let sigma = svd.singular_values[k];
+            let displacement: Vec<f64> = (0..n)
+                .map(|s| (u[(s, k)] * c_eq[positive[s]].sqrt()).abs())
+                .collect();
+            let total: f64 = displacement.iter().sum();
+            let species = top_shares(
+                displacement
+                    .iter()
+                    .enumerate()
+                    .map(|(s, d)| (network.species[positive[s]].name.clone(), d / total)),
+            );
+            let steps = top_shares(
+                steps
+                    .iter()
+                    .enumerate()
+                    .map(|(j, (eq, _, _))| (eq.clone(), v_t[(k, j)].powi(2))),
+            );
+            Mode {
+                tau_seconds: 1.0 / (sigma * sigma),
+                species,
+                steps,
+            }
+        })
+        .collect();
+    modes.sort_by(|a, b| b.tau_seconds.total_cmp(&a.tau_seconds));
+    Ok(modes)
+}
+
+/// The largest shares, up to three, dropping those under 5 %.
+fn top_shares(items: impl Iterator<Item = (String, f64)>) -> Vec<Share> {
+    let mut all: Vec<Share> = items.map(|(name, share)| Share { name, share }).collect();
+    all.sort_by(|a, b| b.share.total_cmp(&a.share));
+    let keep = all.iter().take(3).filter(|s| s.share >= 0.05).count().max(1);
+    all.truncate(keep);
+    all
+}
