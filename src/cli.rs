@@ -4,10 +4,12 @@ use std::path::PathBuf;
 
 use clap::{Parser, Subcommand};
 
+use crate::equilibrium;
 use crate::error::Error;
 use crate::network::Network;
 use crate::report;
 use crate::run::{self, RunSettings};
+use crate::stoich::Stoichiometry;
 
 #[derive(Debug, Parser)]
 #[command(
@@ -24,6 +26,18 @@ pub struct Cli {
 pub enum Command {
     /// Integrate a network to equilibrium (or to --until) and write summary, table and chart.
     Run(RunArgs),
+    /// Solve the equilibrium composition directly, without integrating: composition, extent of
+    /// each reaction and conversion of each starting species.
+    Equilibrium(EquilibriumArgs),
+}
+
+#[derive(Debug, clap::Args)]
+pub struct EquilibriumArgs {
+    /// The network file (TOML).
+    pub case: PathBuf,
+    /// Print a JSON object instead of the table.
+    #[arg(long)]
+    pub json: bool,
 }
 
 #[derive(Debug, clap::Args)]
@@ -54,6 +68,7 @@ pub struct RunArgs {
 pub fn execute(cli: Cli) -> Result<String, Error> {
     match cli.command {
         Command::Run(args) => run_command(args),
+        Command::Equilibrium(args) => equilibrium_command(args),
     }
 }
 
@@ -111,4 +126,15 @@ fn run_command(args: RunArgs) -> Result<String, Error> {
     let files = report::render_run(&result)?;
     let written = report::write_all(&out, &files, args.force)?;
     Ok(report::terminal::render(&result, &written))
+}
+
+fn equilibrium_command(args: EquilibriumArgs) -> Result<String, Error> {
+    let network = Network::from_file(&args.case)?;
+    let stoich = Stoichiometry::new(&network);
+    let solved =
+        equilibrium::solve(&network, &stoich).map_err(|why| Error::NoEquilibrium(why.to_string()))?;
+    let c0 = network.initial_state();
+    let extents = equilibrium::extents(&stoich, &c0, &solved.concentrations);
+    let table = report::equilibrium_table::EquilibriumTable::new(&network, &c0, &solved, extents.as_deref());
+    Ok(if args.json { table.json() } else { table.text() })
 }

@@ -15,7 +15,11 @@ use crate::stoich::{Echelon, Insert, Stoichiometry};
 /// K equations that fail to close around a cycle by more than this (in ln K) are inconsistent.
 const CYCLE_TOL: f64 = 1e-9;
 /// Relative tolerance on every conservation total at convergence.
-const TOTAL_TOL: f64 = 1e-13;
+const TOTAL_TOL: f64 = 1e-12;
+/// A Newton step that moves no ln c by more than this has reached the rounding floor.
+const STALL: f64 = 1e-14;
+/// At the rounding floor, totals within this (relative) are accepted.
+const STALL_TOTAL_TOL: f64 = 1e-9;
 const MAX_ITERATIONS: usize = 500;
 
 /// A solved equilibrium.
@@ -355,19 +359,23 @@ fn maximise_dual(
     for iteration in 1..=MAX_ITERATIONS {
         let c: Vec<f64> = log_c(&lambda).iter().map(|x| x.exp()).collect();
         let mut gradient = nalgebra::DVector::<f64>::zeros(m);
-        let mut converged = true;
+        let mut sizes = vec![0.0; m];
         for (l, (row, total)) in laws.iter().enumerate() {
             let value: f64 = row.iter().map(|&(k, v)| v * c[k]).sum();
-            let size: f64 = row
+            sizes[l] = row
                 .iter()
                 .map(|&(k, v)| (v * c[k]).abs())
                 .sum::<f64>()
                 .max(total.abs());
             gradient[l] = total - value;
-            if gradient[l].abs() > TOTAL_TOL * size.max(f64::MIN_POSITIVE) {
-                converged = false;
-            }
         }
+        let within = |tol: f64| {
+            gradient
+                .iter()
+                .zip(&sizes)
+                .all(|(g, s)| g.abs() <= tol * s.max(f64::MIN_POSITIVE))
+        };
+        let converged = within(TOTAL_TOL);
         if converged {
             return Ok((c, iteration - 1));
         }
@@ -388,6 +396,15 @@ fn maximise_dual(
         let largest_log_change = (0..n)
             .map(|k| (0..m).map(|l| dense_rows[l][k] * step[l]).sum::<f64>().abs())
             .fold(0.0, f64::max);
+        if largest_log_change < STALL {
+            return if within(STALL_TOTAL_TOL) {
+                Ok((c, iteration))
+            } else {
+                Err(NoEquilibrium::NotConverged {
+                    iterations: iteration,
+                })
+            };
+        }
         let mut t = if largest_log_change > 5.0 {
             5.0 / largest_log_change
         } else {

@@ -45,6 +45,8 @@ pub enum Error {
     OutputExists { path: PathBuf, existing: String },
     #[error("integration failed at t = {time:.6e} s: {reason}")]
     Integration { time: f64, reason: String },
+    #[error("{0}")]
+    NoEquilibrium(String),
     #[error("bad option {option}: {message}")]
     Option { option: String, message: String },
 }
@@ -55,7 +57,7 @@ impl Error {
     pub fn exit_code(&self) -> u8 {
         match self {
             Error::Input(_) | Error::OutputExists { .. } | Error::Option { .. } | Error::Read { .. } => 2,
-            Error::Write { .. } | Error::Integration { .. } => 1,
+            Error::Write { .. } | Error::Integration { .. } | Error::NoEquilibrium(_) => 1,
         }
     }
 }

@@ -119,6 +119,11 @@ fn a_run_writes_all_outputs_and_never_overwrites_silently() {
         .unwrap();
     assert!((one_percent - 100f64.ln() / 3.0).abs() < 2e-3 * one_percent);
     assert!((summary["final"]["A"].as_f64().unwrap() - 1.0 / 3.0).abs() < 1e-5);
+    // Solved directly: A = 1/3 exactly (K = 2); the one relaxation time is 1/(kf + kr) = 1/3 s.
+    assert!((summary["equilibrium"]["A"].as_f64().unwrap() - 1.0 / 3.0).abs() < 1e-12);
+    assert_eq!(summary["routes_agree"], serde_json::Value::Bool(true));
+    let tau = summary["relaxation"][0]["tau_seconds"].as_f64().unwrap();
+    assert!((tau - 1.0 / 3.0).abs() < 1e-12);
 
     let csv = std::fs::read_to_string(out_dir.join("trajectory.csv")).unwrap();
     let mut lines = csv.lines();
@@ -160,4 +165,35 @@ fn a_run_writes_all_outputs_and_never_overwrites_silently() {
         .filter(|e| e.file_name().to_string_lossy().starts_with('.'))
         .collect();
     assert!(leftovers.is_empty(), "staging folder left behind");
+}
+
+#[test]
+fn equilibrium_command_reports_composition_extents_and_conversion() {
+    let dir = tempfile::tempdir().unwrap();
+    let case = write_case(dir.path(), "ab.toml", GOOD);
+    let out = kinequil(&["equilibrium", &case]);
+    assert_eq!(out.status.code(), Some(0));
+    let text = String::from_utf8_lossy(&out.stdout);
+    // A <=> B with K = 2 from A = 1: A = 1/3, extent 2/3, conversion of A 66.67 %.
+    for phrase in [
+        "0.3333333",
+        "0.6666667",
+        "66.67%",
+        "extent of reaction",
+        "Cautions",
+    ] {
+        assert!(text.contains(phrase), "`{phrase}` missing:\n{text}");
+    }
+    let json = kinequil(&["equilibrium", &case, "--json"]);
+    let value: serde_json::Value = serde_json::from_slice(&json.stdout).unwrap();
+    assert!((value["reactions"][0]["extent"].as_f64().unwrap() - 2.0 / 3.0).abs() < 1e-12);
+
+    let one_way = write_case(
+        dir.path(),
+        "oneway.toml",
+        "[species]\nA = 1.0\nB = 0.0\n\n[[reaction]]\nequation = \"A => B\"\nkf = 1.0\n",
+    );
+    let out = kinequil(&["equilibrium", &one_way]);
+    assert_eq!(out.status.code(), Some(1));
+    assert!(String::from_utf8_lossy(&out.stderr).contains("no equilibrium exists"));
 }

@@ -5,6 +5,7 @@ mod util;
 mod analytic;
 mod cli;
 mod docs;
+mod equilibrium;
 mod explicit_reference;
 mod input_errors;
 mod model;

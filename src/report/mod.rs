@@ -4,6 +4,7 @@
 //! never replaced without `--force`.
 
 pub mod chart;
+pub mod equilibrium_table;
 pub mod summary;
 pub mod table;
 pub mod terminal;

@@ -1,0 +1,317 @@
+//! The directly solved equilibrium and the relaxation analysis against closed forms, and against
+//! the integration on random detailed-balance networks.
+//!
+//! Sources: the equilibrium of A + B <=> C and of 2 A <=> B follows from K and the conservation
+//! totals as the root of a quadratic (any physical-chemistry text). The linearised relaxation
+//! times 1/τ = kf([A]eq + [B]eq) + kr for A + B <=> C and 1/τ = 4 kf [A]eq + kr for 2 A <=> B
+//! (rate of 2 A <=> B counted per reaction event) are standard relaxation-kinetics results
+//! (Bernasconi, Relaxation Kinetics, Academic Press 1976, chapter 1; chapter from memory). For
+//! consecutive reversible first-order steps A <=> B <=> C the two relaxation rates are the roots
+//! λ = (p ± √(p² − 4q))/2, p = k1 + k−1 + k2 + k−2, q = k1k2 + k−1k−2 + k1k−2 (standard textbook
+//! result, e.g. Steinfeld, Francisco & Hase, Chemical Kinetics and Dynamics, consecutive
+//! reversible reactions).
+
+use kinequil::equilibrium::{self, NoEquilibrium};
+use kinequil::integrate::{integrate, Options};
+use kinequil::kinetics::RateModel;
+use kinequil::relaxation;
+use kinequil::stoich::Stoichiometry;
+
+use crate::util::{network, rel, run_with, SplitMix};
+
+fn solve(text: &str) -> Vec<f64> {
+    let net = network(text);
+    let stoich = Stoichiometry::new(&net);
+    equilibrium::solve(&net, &stoich)
+        .unwrap_or_else(|e| panic!("{e}"))
+        .concentrations
+}
+
+fn taus(text: &str, c_eq: &[f64]) -> Vec<f64> {
+    relaxation::modes(&network(text), c_eq)
+        .unwrap()
+        .iter()
+        .map(|m| m.tau_seconds)
+        .collect()
+}
+
+const ASSOCIATION: &str = r#"
+[species]
+A = 0.8
+B = 0.5
+C = 0.1
+
+[[reaction]]
+equation = "A + B <=> C"
+kf = 3.0
+kr = 0.2
+"#;
+
+#[test]
+fn association_equilibrium_and_relaxation_time() {
+    let (kf, kr): (f64, f64) = (3.0, 0.2);
+    let k = kf / kr;
+    // Totals A + C = 0.9, B + C = 0.6; x = [C]eq solves k (0.9 − x)(0.6 − x) = x.
+    let (a, b): (f64, f64) = (0.9, 0.6);
+    let p = k * (a + b) + 1.0;
+    let x = (p - (p * p - 4.0 * k * k * a * b).sqrt()) / (2.0 * k);
+    let c = solve(ASSOCIATION);
+    // The solver converges to 1e-13 on the totals; 1e-10 relative is what the closed form's
+    // own rounding (cancellation in the quadratic) allows.
+    assert!(rel(c[2], x) < 1e-10, "C {} vs {x}", c[2]);
+    assert!(rel(c[0], a - x) < 1e-10 && rel(c[1], b - x) < 1e-10);
+    let tau = taus(ASSOCIATION, &c);
+    assert_eq!(tau.len(), 1, "one reaction, one mode");
+    let expected = 1.0 / (kf * (c[0] + c[1]) + kr);
+    assert!(rel(tau[0], expected) < 1e-10, "τ {} vs {expected}", tau[0]);
+}
+
+#[test]
+fn association_small_perturbation_decays_at_the_relaxation_rate() {
+    // Start 1e-5 mol/L away from equilibrium along the reaction and integrate tightly: the
+    // deviation must decay as exp(−t/τ). The nonlinear correction is of the order of the relative
+    // perturbation (1e-5), so 1e-3 relative on the fitted rate is a safe bound.
+    let c = solve(ASSOCIATION);
+    let eps = 1e-5;
+    let start = [c[0] + eps, c[1] + eps, c[2] - eps];
+    let net = network(ASSOCIATION);
+    let stoich = Stoichiometry::new(&net);
+    let model = RateModel::new(&net);
+    let tau = taus(ASSOCIATION, &c)[0];
+    let options = Options {
+        rtol: 1e-12,
+        atol: vec![1e-18; 3],
+        until: Some(3.0 * tau),
+        to_equilibrium: false,
+        ..Options::new(3)
+    };
+    let solution = integrate(&model, &stoich.conservation, &start, &options).unwrap();
+    let (t1, t2) = (0.5 * tau, 2.5 * tau);
+    let d1 = c[2] - solution.trajectory.value_at(2, t1);
+    let d2 = c[2] - solution.trajectory.value_at(2, t2);
+    let rate = (d1 / d2).ln() / (t2 - t1);
+    assert!(
+        rel(rate, 1.0 / tau) < 1e-3,
+        "fitted rate {rate} vs 1/τ {}",
+        1.0 / tau
+    );
+}
+
+#[test]
+fn dimerisation_equilibrium_and_relaxation_time() {
+    let text = r#"
+[species]
+A = 1.0
+B = 0.0
+
+[[reaction]]
+equation = "2 A <=> B"
+kf = 0.7
+kr = 0.1
+"#;
+    let (kf, kr): (f64, f64) = (0.7, 0.1);
+    let k = kf / kr;
+    // A + 2 B = 1: 2 k A² + A − 1 = 0.
+    let a = (-1.0 + (1.0 + 8.0 * k).sqrt()) / (4.0 * k);
+    let c = solve(text);
+    assert!(rel(c[0], a) < 1e-12, "A {} vs {a}", c[0]);
+    let tau = taus(text, &c);
+    let expected = 1.0 / (4.0 * kf * a + kr);
+    assert!(rel(tau[0], expected) < 1e-10, "τ {} vs {expected}", tau[0]);
+}
+
+#[test]
+fn consecutive_steps_have_the_two_closed_form_relaxation_times() {
+    let text = r#"
+[species]
+A = 1.0
+B = 0.0
+C = 0.0
+
+[[reaction]]
+equation = "A <=> B"
+kf = 2.0
+kr = 0.5
+
+[[reaction]]
+equation = "B <=> C"
+kf = 0.3
+kr = 0.04
+"#;
+    let (k1, km1, k2, km2): (f64, f64, f64, f64) = (2.0, 0.5, 0.3, 0.04);
+    let p = k1 + km1 + k2 + km2;
+    let q = k1 * k2 + km1 * km2 + k1 * km2;
+    let slow = (p - (p * p - 4.0 * q).sqrt()) / 2.0;
+    let fast = (p + (p * p - 4.0 * q).sqrt()) / 2.0;
+    let c = solve(text);
+    let tau = taus(text, &c);
+    assert_eq!(tau.len(), 2);
+    // Slowest first; 1e-10 relative: a 2x2 symmetric eigenproblem in double precision.
+    assert!(
+        rel(tau[0], 1.0 / slow) < 1e-10,
+        "slow τ {} vs {}",
+        tau[0],
+        1.0 / slow
+    );
+    assert!(
+        rel(tau[1], 1.0 / fast) < 1e-10,
+        "fast τ {} vs {}",
+        tau[1],
+        1.0 / fast
+    );
+    // The slow mode is set mostly by the slow step B <=> C.
+    let modes = relaxation::modes(&network(text), &c).unwrap();
+    assert_eq!(modes[0].steps[0].name, "B <=> C");
+}
+
+#[test]
+fn pure_solid_stays_out_of_k() {
+    // S(s) <=> A + B with K = [A][B] = 0.04 (the solid's activity is 1), A0 = 0.1, B0 = 0:
+    // by hand, B (0.1 + B) = 0.04, so B = (−0.1 + √(0.01 + 0.16)) / 2; the solid loses B.
+    let text = r#"
+[species]
+S = { initial = 1.0, phase = "solid" }
+A = 0.1
+B = 0.0
+
+[[reaction]]
+equation = "S <=> A + B"
+kf = 0.02
+K = 0.04
+"#;
+    let b = (-0.1 + (0.01f64 + 0.16).sqrt()) / 2.0;
+    let c = solve(text);
+    assert!(rel(c[2], b) < 1e-12, "B {} vs {b}", c[2]);
+    assert!(rel(c[1], 0.1 + b) < 1e-12);
+    assert!(rel(c[0], 1.0 - b) < 1e-12, "solid left {}", c[0]);
+    // The integration reaches the same state (1e-6: rtol 1e-8 with margin for the global error).
+    let result = run_with(text, 1e-8, 1e-14, None);
+    let integrated = result.equilibrium.as_ref().unwrap();
+    for i in 0..3 {
+        assert!(
+            rel(integrated[i], c[i]) < 1e-6,
+            "species {i}: {} vs {}",
+            integrated[i],
+            c[i]
+        );
+    }
+    assert!(!result.disagrees);
+}
+
+#[test]
+fn says_clearly_when_there_is_no_equilibrium() {
+    let one_way = "[species]\nA = 1.0\nB = 0.0\n\n[[reaction]]\nequation = \"A => B\"\nkf = 1.0\n";
+    let net = network(one_way);
+    let err = equilibrium::solve(&net, &Stoichiometry::new(&net)).unwrap_err();
+    assert!(matches!(err, NoEquilibrium::OneWaySteps(_)), "{err}");
+
+    // A cycle whose K product is 2, not 1 (Wegscheider condition broken).
+    let cycle = r#"
+[species]
+A = 1.0
+B = 0.0
+C = 0.0
+
+[[reaction]]
+equation = "A <=> B"
+kf = 1.0
+K = 2.0
+
+[[reaction]]
+equation = "B <=> C"
+kf = 1.0
+K = 1.0
+
+[[reaction]]
+equation = "C <=> A"
+kf = 1.0
+K = 1.0
+"#;
+    let net = network(cycle);
+    let err = equilibrium::solve(&net, &Stoichiometry::new(&net)).unwrap_err();
+    match err {
+        NoEquilibrium::InconsistentCycle { mismatch, .. } => {
+            assert!((mismatch.abs() - 2f64.ln()).abs() < 1e-12)
+        }
+        other => panic!("expected an inconsistent cycle, got {other}"),
+    }
+}
+
+#[test]
+fn random_detailed_balance_networks_end_where_the_solver_says() {
+    // Seeded random networks of 30 species built to satisfy detailed balance: species carry a
+    // size (1 to 3) that every step conserves; each species has a free energy g_i and every step
+    // K = exp(−Σ ν g). Property: the integrated end state equals the solved equilibrium and
+    // satisfies every step's K. Tolerances: rtol 1e-8 gives end states within 1e-6 relative of
+    // the steady state (the detector stops within the integration tolerance, and the global
+    // error is a modest multiple of it).
+    for seed in 1..=6u64 {
+        let mut rng = SplitMix(seed);
+        let n = 30;
+        let size: Vec<usize> = (0..n).map(|i| 1 + i % 3).collect();
+        let g: Vec<f64> = (0..n).map(|_| 4.0 * rng.next_f64() - 2.0).collect();
+        let mut text = String::from("[species]\n");
+        for i in 0..n {
+            text += &format!("X{i} = {}\n", 0.05 + rng.next_f64());
+        }
+        let step = |lhs: &[usize], rhs: &[usize], rng: &mut SplitMix| {
+            let kf = 10f64.powf(4.0 * rng.next_f64() - 2.0);
+            let dg: f64 = rhs.iter().map(|&i| g[i]).sum::<f64>() - lhs.iter().map(|&i| g[i]).sum::<f64>();
+            let side = |s: &[usize]| s.iter().map(|i| format!("X{i}")).collect::<Vec<_>>().join(" + ");
+            format!(
+                "\n[[reaction]]\nequation = \"{} <=> {}\"\nkf = {kf:e}\nK = {:e}\n",
+                side(lhs),
+                side(rhs),
+                (-dg).exp()
+            )
+        };
+        // Isomerisations within each size class (a chain), then associations that add sizes.
+        for i in 0..n {
+            if i + 3 < n {
+                text += &step(&[i], &[i + 3], &mut rng);
+            }
+        }
+        for _ in 0..15 {
+            let a = (rng.next_f64() * n as f64) as usize % n;
+            let b = (rng.next_f64() * n as f64) as usize % n;
+            if size[a] + size[b] <= 3 {
+                let candidates: Vec<usize> = (0..n).filter(|&k| size[k] == size[a] + size[b]).collect();
+                let target = candidates[(rng.next_f64() * candidates.len() as f64) as usize];
+                text += &step(&[a, b], &[target], &mut rng);
+            }
+        }
+        let result = run_with(&text, 1e-8, 1e-14, None);
+        let solved = result
+            .solved
+            .as_ref()
+            .unwrap_or_else(|e| panic!("seed {seed}: {e}"));
+        let integrated = result.equilibrium.as_ref().expect("equilibrium detected");
+        for (i, (got, want)) in integrated.iter().zip(&solved.concentrations).enumerate() {
+            assert!(rel(*got, *want) < 1e-6, "seed {seed}, X{i}: {got} vs {want}");
+        }
+        assert!(!result.disagrees, "seed {seed}");
+        // Every step's K holds at the solved equilibrium (ln Q − ln K within 1e-9).
+        assert!(
+            solved.max_k_residual < 1e-9,
+            "seed {seed}: {}",
+            solved.max_k_residual
+        );
+        for r in &result.network.reactions {
+            let ln_q: f64 = r
+                .products
+                .iter()
+                .map(|&(i, v)| v * solved.concentrations[i].ln())
+                .sum::<f64>()
+                - r.reactants
+                    .iter()
+                    .map(|&(i, v)| v * solved.concentrations[i].ln())
+                    .sum::<f64>();
+            assert!(
+                (ln_q - (r.kf / r.kr).ln()).abs() < 1e-9,
+                "seed {seed}: {}",
+                r.equation
+            );
+        }
+        assert!(result.relaxation.as_ref().is_ok_and(|m| !m.is_empty()));
+    }
+}
