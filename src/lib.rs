@@ -6,6 +6,7 @@
 
 pub mod analysis;
 pub mod cli;
+pub mod constants;
 pub mod equilibrium;
 pub mod error;
 pub mod integrate;

@@ -5,6 +5,7 @@
 //! reversible step has a reverse constant.
 
 mod equation;
+mod formula;
 
 use std::borrow::Cow;
 use std::ops::Range;
@@ -15,6 +16,7 @@ use toml::Spanned;
 
 use crate::error::{Error, InputError};
 pub use equation::{parse_equation, ParsedEquation};
+pub use formula::{parse_formula, Formula};
 
 /// Run temperature when the file gives none (IUPAC standard ambient temperature).
 pub const DEFAULT_TEMPERATURE_K: f64 = 298.15;
@@ -36,6 +38,12 @@ pub struct Species {
     pub phase: Phase,
     /// Absolute integration tolerance for this species, mol/L, when the file sets one.
     pub atol: Option<f64>,
+    /// Chemical formula, for the element-balance audit.
+    pub formula: Option<Formula>,
+    /// Charge number (0 unless given).
+    pub charge: f64,
+    /// Standard Gibbs energy of formation, kJ/mol, for the audit.
+    pub gibbs_formation: Option<f64>,
 }
 
 /// One step of the network with its resolved mass-action (or user-ordered) rate law.
@@ -55,6 +63,10 @@ pub struct Reaction {
     pub kr: f64,
     /// Equilibrium constant as given in the file (Kc, mol/L based), if any.
     pub k_given: Option<f64>,
+    /// True when kr was written in the file (not derived from K).
+    pub kr_given: bool,
+    /// Standard Gibbs energy of reaction as given in the file, kJ/mol.
+    pub gibbs: Option<f64>,
     /// (species index, order) of each factor of the forward rate; pure phases left out.
     pub forward_orders: Vec<(usize, f64)>,
     /// (species index, order) of each factor of the reverse rate; empty for a one-way step.
@@ -213,6 +225,9 @@ impl<'a> Reader<'a> {
                 initial: 0.0,
                 phase: Phase::Dissolved,
                 atol: None,
+                formula: None,
+                charge: 0.0,
+                gibbs_formation: None,
             };
             match entry.get_ref() {
                 DeValue::Table(props) => {
@@ -227,6 +242,13 @@ impl<'a> Reader<'a> {
                                 }
                                 item.atol = Some(atol);
                             }
+                            "formula" => {
+                                let text = self.string(v, &sub)?;
+                                item.formula =
+                                    Some(parse_formula(text).map_err(|m| self.error(Some(v.span()), &sub, m))?);
+                            }
+                            "charge" => item.charge = self.number(v, &sub)?,
+                            "dGf" => item.gibbs_formation = Some(self.number(v, &sub)?),
                             "phase" => {
                                 item.phase = match self.string(v, &sub)? {
                                     "solution" | "dissolved" => Phase::Dissolved,
@@ -246,7 +268,9 @@ impl<'a> Reader<'a> {
                                 return Err(self.error(
                                     Some(prop.span()),
                                     &sub,
-                                    format!("unknown property `{other}`; expected initial, phase or atol"),
+                                    format!(
+                                        "unknown property `{other}`; expected initial, phase, atol, formula, charge or dGf"
+                                    ),
                                 ))
                             }
                         }
@@ -288,7 +312,7 @@ impl<'a> Reader<'a> {
         let DeValue::Table(table) = item.get_ref() else {
             return Err(self.error(Some(item.span()), field, "must be a table with equation and kf"));
         };
-        let known = ["equation", "kf", "kr", "K", "orders", "reverse_orders"];
+        let known = ["equation", "kf", "kr", "K", "dG", "orders", "reverse_orders"];
         for (key, _) in table.iter() {
             if !known.contains(&key.get_ref().as_ref()) {
                 return Err(self.error(
@@ -415,6 +439,11 @@ impl<'a> Reader<'a> {
             kf,
             kr,
             k_given,
+            kr_given: kr_given.is_some(),
+            gibbs: match table.get("dG") {
+                Some(v) => Some(self.number(v, &format!("{field}.dG"))?),
+                None => None,
+            },
             forward_orders,
             reverse_orders,
         })
