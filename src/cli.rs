@@ -4,6 +4,7 @@ use std::path::PathBuf;
 
 use clap::{Parser, Subcommand};
 
+use crate::audit::{self, Adjust};
 use crate::equilibrium;
 use crate::error::Error;
 use crate::network::Network;
@@ -29,6 +30,31 @@ pub enum Command {
     /// Solve the equilibrium composition directly, without integrating: composition, extent of
     /// each reaction and conversion of each starting species.
     Equilibrium(EquilibriumArgs),
+    /// Audit the rate constants: kf/kr against K, detailed balance around cycles, element and
+    /// charge balance, units and limits; propose a minimal correction. Exit 0 when consistent,
+    /// 1 when not, 2 for bad input.
+    Check(CheckArgs),
+}
+
+#[derive(Debug, clap::Args)]
+pub struct CheckArgs {
+    /// The network file (TOML).
+    pub case: PathBuf,
+    /// Print a JSON report instead of the table.
+    #[arg(long)]
+    pub json: bool,
+    /// Largest deviation accepted as consistent, kJ/mol.
+    #[arg(long, value_name = "KJ_PER_MOL", default_value_t = crate::audit::DEFAULT_TOL_KJ)]
+    pub tol_kj: f64,
+    /// Which constants the proposed correction may change.
+    #[arg(long, value_enum, default_value_t = Adjust::Kr)]
+    pub adjust: Adjust,
+    /// Write the corrected network to this new file (the original is left untouched).
+    #[arg(long, value_name = "FILE")]
+    pub write_corrected: Option<PathBuf>,
+    /// Replace FILE if it exists.
+    #[arg(long)]
+    pub force: bool,
 }
 
 #[derive(Debug, clap::Args)]
@@ -64,11 +90,25 @@ pub struct RunArgs {
     pub force: bool,
 }
 
-/// Runs the parsed command; returns what to print.
-pub fn execute(cli: Cli) -> Result<String, Error> {
+/// What a successful command prints and the exit code it ends with (`check` ends with 1 when
+/// the network is inconsistent).
+pub struct Outcome {
+    pub text: String,
+    pub exit_code: u8,
+}
+
+impl From<String> for Outcome {
+    fn from(text: String) -> Outcome {
+        Outcome { text, exit_code: 0 }
+    }
+}
+
+/// Runs the parsed command.
+pub fn execute(cli: Cli) -> Result<Outcome, Error> {
     match cli.command {
-        Command::Run(args) => run_command(args),
-        Command::Equilibrium(args) => equilibrium_command(args),
+        Command::Run(args) => run_command(args).map(Outcome::from),
+        Command::Equilibrium(args) => equilibrium_command(args).map(Outcome::from),
+        Command::Check(args) => check_command(args),
     }
 }
 
@@ -137,4 +177,45 @@ fn equilibrium_command(args: EquilibriumArgs) -> Result<String, Error> {
     let extents = equilibrium::extents(&stoich, &c0, &solved.concentrations);
     let table = report::equilibrium_table::EquilibriumTable::new(&network, &c0, &solved, extents.as_deref());
     Ok(if args.json { table.json() } else { table.text() })
+}
+
+fn check_command(args: CheckArgs) -> Result<Outcome, Error> {
+    if !(args.tol_kj > 0.0 && args.tol_kj.is_finite()) {
+        return Err(Error::Option {
+            option: "--tol-kj".into(),
+            message: "must be a positive energy in kJ/mol".into(),
+        });
+    }
+    let network = Network::from_file(&args.case)?;
+    let found = audit::audit(&network, args.tol_kj, args.adjust);
+    let mut text = if args.json {
+        serde_json::to_string_pretty(&found).unwrap_or_default() + "\n"
+    } else {
+        report::audit_table::render(&network, &found)
+    };
+    if let Some(path) = &args.write_corrected {
+        let Some(correction) = &found.correction else {
+            return Err(Error::Option {
+                option: "--write-corrected".into(),
+                message: "nothing to correct: the constants already meet every condition".into(),
+            });
+        };
+        let original = std::fs::read_to_string(&args.case).map_err(|source| Error::Read {
+            path: args.case.clone(),
+            source,
+        })?;
+        let corrected =
+            audit::corrected_network_text(&original, correction).map_err(|message| Error::Write {
+                path: path.clone(),
+                message,
+            })?;
+        report::write_new_file(path, corrected.as_bytes(), args.force)?;
+        if !args.json {
+            text += &format!("  corrected network written to {}\n", path.display());
+        }
+    }
+    Ok(Outcome {
+        text,
+        exit_code: if found.consistent { 0 } else { 1 },
+    })
 }

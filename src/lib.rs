@@ -5,6 +5,7 @@
 //! integration, [`analysis`] derives time to equilibrium, and [`report`] writes the files.
 
 pub mod analysis;
+pub mod audit;
 pub mod cli;
 pub mod constants;
 pub mod equilibrium;

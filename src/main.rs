@@ -8,10 +8,10 @@ use clap::Parser;
 fn main() -> ExitCode {
     let cli = kinequil::cli::Cli::parse();
     match kinequil::cli::execute(cli) {
-        Ok(text) => {
+        Ok(outcome) => {
             // A closed pipe (e.g. `| head`) is not an error.
-            let _ = std::io::stdout().write_all(text.as_bytes());
-            ExitCode::SUCCESS
+            let _ = std::io::stdout().write_all(outcome.text.as_bytes());
+            ExitCode::from(outcome.exit_code)
         }
         Err(e) => {
             eprintln!("error: {e}");

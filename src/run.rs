@@ -2,6 +2,7 @@
 //! data for the reports.
 
 use crate::analysis::{self, Settling};
+use crate::audit::{self, Audit};
 use crate::equilibrium::{self, Equilibrium, NoEquilibrium};
 use crate::error::Error;
 use crate::integrate::{self, Options, Solution};
@@ -65,6 +66,8 @@ pub struct RunResult {
     /// Per species, the fraction of its total change completed at `final_time` (None where the
     /// species hardly changes or no equilibrium is known).
     pub progress: Vec<Option<f64>>,
+    /// The consistency audit of the rate constants (default tolerance).
+    pub audit: Audit,
 }
 
 impl RunResult {
@@ -134,7 +137,7 @@ pub fn run(network: &Network, settings: &RunSettings) -> Result<RunResult, Error
     };
     let relaxation = match &solved {
         Ok(exact) => relaxation::modes(network, &exact.concentrations),
-        Err(why) => Err(why.to_string()),
+        Err(_) => Err("needs an equilibrium (see the equilibrium line)".to_string()),
     };
     let reference = solved
         .as_ref()
@@ -166,6 +169,7 @@ pub fn run(network: &Network, settings: &RunSettings) -> Result<RunResult, Error
         disagrees,
         relaxation,
         progress,
+        audit: audit::audit(network, audit::DEFAULT_TOL_KJ, audit::Adjust::Kr),
     })
 }
 

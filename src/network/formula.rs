@@ -9,7 +9,10 @@ pub struct Formula {
 
 impl Formula {
     pub fn count(&self, element: &str) -> f64 {
-        self.elements.iter().find(|(e, _)| e == element).map_or(0.0, |e| e.1)
+        self.elements
+            .iter()
+            .find(|(e, _)| e == element)
+            .map_or(0.0, |e| e.1)
     }
 }
 
@@ -24,7 +27,11 @@ pub fn parse_formula(text: &str) -> Result<Formula, String> {
         }
         let chars: Vec<char> = part.chars().collect();
         let mut pos = 0;
-        let multiplier = if k > 0 { read_number(&chars, &mut pos).unwrap_or(1.0) } else { 1.0 };
+        let multiplier = if k > 0 {
+            read_number(&chars, &mut pos).unwrap_or(1.0)
+        } else {
+            1.0
+        };
         let counts = read_group(&chars, &mut pos, text)?;
         if pos != chars.len() {
             return Err(format!("unexpected `{}` in formula `{text}`", chars[pos]));
@@ -51,7 +58,9 @@ fn read_number(chars: &[char], pos: &mut usize) -> Option<f64> {
     while *pos < chars.len() && (chars[*pos].is_ascii_digit() || chars[*pos] == '.') {
         *pos += 1;
     }
-    (start < *pos).then(|| chars[start..*pos].iter().collect::<String>().parse().ok()).flatten()
+    (start < *pos)
+        .then(|| chars[start..*pos].iter().collect::<String>().parse().ok())
+        .flatten()
 }
 
 /// Reads elements and bracketed groups until a closing bracket or the end.
@@ -98,7 +107,10 @@ mod tests {
     #[test]
     fn reads_formulas() {
         let f = parse_formula("C2H6O").unwrap();
-        assert_eq!(f.elements, vec![("C".into(), 2.0), ("H".into(), 6.0), ("O".into(), 1.0)]);
+        assert_eq!(
+            f.elements,
+            vec![("C".into(), 2.0), ("H".into(), 6.0), ("O".into(), 1.0)]
+        );
         let f = parse_formula("Ca(OH)2").unwrap();
         assert_eq!((f.count("Ca"), f.count("O"), f.count("H")), (1.0, 2.0, 2.0));
         let f = parse_formula("CuSO4·5H2O").unwrap();

@@ -3,6 +3,7 @@
 //! every file has been written, so a run leaves all of its files or none; earlier results are
 //! never replaced without `--force`.
 
+pub mod audit_table;
 pub mod chart;
 pub mod equilibrium_table;
 pub mod summary;
@@ -51,6 +52,35 @@ pub fn render_run(result: &RunResult) -> Result<Vec<(String, Vec<u8>)>, Error> {
         ("concentrations.svg".into(), svg.into_bytes()),
         ("concentrations.png".into(), png),
     ])
+}
+
+/// Writes one new file whole (temporary file, then rename); refuses to replace an existing file
+/// unless `force`.
+pub fn write_new_file(path: &Path, bytes: &[u8], force: bool) -> Result<(), Error> {
+    if path.exists() && !force {
+        return Err(Error::OutputExists {
+            path: path.to_path_buf(),
+            existing: "the file exists".into(),
+        });
+    }
+    let write_error = |e: std::io::Error| Error::Write {
+        path: path.to_path_buf(),
+        message: e.to_string(),
+    };
+    let dir = path
+        .parent()
+        .filter(|p| !p.as_os_str().is_empty())
+        .unwrap_or(Path::new("."));
+    let name = path
+        .file_name()
+        .map(|n| n.to_string_lossy().into_owned())
+        .unwrap_or_default();
+    let temporary = dir.join(format!(".{name}.kinequil-{}", std::process::id()));
+    fs::write(&temporary, bytes).map_err(write_error)?;
+    fs::rename(&temporary, path).map_err(|e| {
+        let _ = fs::remove_file(&temporary);
+        write_error(e)
+    })
 }
 
 /// Writes the files into `dir` all together: staged in a hidden folder inside `dir`, then

@@ -46,6 +46,8 @@ pub struct Summary {
     pub relaxation_estimates: Vec<Estimate>,
     /// Per species, the fraction of its total change completed at `final_time`.
     pub progress_at_final_time: Map<String, serde_json::Value>,
+    /// The rate-constant audit in brief (`kinequil check` gives the full report).
+    pub audit: AuditBrief,
     pub conservation: Conservation,
     pub solver: Solver,
     /// Most negative concentration met, as a multiple of its tolerance (0 when none).
@@ -58,6 +60,13 @@ pub struct EquilibriumSolver {
     pub iterations: usize,
     pub max_ln_k_residual: f64,
     pub max_total_relative_residual: f64,
+}
+
+#[derive(Debug, Serialize)]
+pub struct AuditBrief {
+    pub consistent: bool,
+    pub tolerance_kj_per_mol: f64,
+    pub findings: Vec<String>,
 }
 
 #[derive(Debug, Serialize)]
@@ -103,6 +112,12 @@ fn by_species(names: &[String], values: &[f64]) -> Map<String, serde_json::Value
 }
 
 pub fn stop_description(result: &RunResult) -> String {
+    if let (Err(_), Some(t)) = (&result.solved, result.solution.equilibrium_at) {
+        return format!(
+            "steady state reached at {} (not an equilibrium: see below)",
+            format_duration(t)
+        );
+    }
     match (result.solution.stop, result.solution.equilibrium_at) {
         (StopReason::Equilibrium, Some(t)) => format!("equilibrium detected at {}", format_duration(t)),
         (StopReason::ReachedTime, Some(t)) => format!("reached the requested time; equilibrium detected at {}", format_duration(t)),
@@ -195,6 +210,11 @@ impl Summary {
                 .zip(&result.progress)
                 .map(|(n, p)| (n.clone(), serde_json::json!(p)))
                 .collect(),
+            audit: AuditBrief {
+                consistent: result.audit.consistent,
+                tolerance_kj_per_mol: result.audit.tolerance_kj_per_mol,
+                findings: result.audit.brief(),
+            },
             conservation: Conservation {
                 laws,
                 max_relative_drift: result.drift.iter().fold(0.0, |m: f64, &d| m.max(d)),

@@ -96,6 +96,19 @@ pub fn render(result: &RunResult, files: &[PathBuf]) -> String {
             );
         }
     }
+    let findings = result.audit.brief();
+    if findings.is_empty() {
+        let _ = writeln!(out, "  audit of the rate constants: no findings");
+    } else {
+        let _ = writeln!(
+            out,
+            "  audit of the rate constants ({} findings; `kinequil check` for details):",
+            findings.len()
+        );
+        for f in findings.iter().take(5) {
+            let _ = writeln!(out, "    - {f}");
+        }
+    }
     let st = &result.solution.stats;
     let _ = writeln!(
         out,

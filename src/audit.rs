@@ -1,0 +1,564 @@
+//! The consistency audit of a network's rate constants.
+//!
+//! - Each reversible step: kf/kr against every independent equilibrium constant known for it (K
+//!   written beside kr, a standard Gibbs energy of reaction `dG`, or the species' standard Gibbs
+//!   energies of formation `dGf`), as a ratio and as an energy RT ln(ratio) in kJ/mol.
+//! - Every independent cycle of reversible steps (a basis of the null space of N over them):
+//!   Π (kf/kr)^x must be 1 (the Wegscheider condition).
+//! - Element and charge balance of each step whose species carry formulas.
+//! - The units each rate constant has by its order, and values beyond physical limits.
+//! - A minimal correction: the smallest weighted change in ln k that makes every cycle and every
+//!   known K hold.
+//!
+//! Equilibrium constants are concentration-based with a 1 mol/L standard state, so K from a Gibbs
+//! energy equals Kc numerically (gas-phase standard states come with the gas-phase work).
+
+use serde::Serialize;
+
+use crate::constants::{rt_kj, BOLTZMANN, PLANCK};
+use crate::network::{Network, Phase};
+use crate::stoich::{net_change, Echelon};
+
+/// Default tolerance on deviations, kJ/mol (about 4 % in K at 298 K).
+pub const DEFAULT_TOL_KJ: f64 = 0.1;
+/// Diffusion limit for bimolecular steps in solution, L/(mol s) (common practice).
+const DIFFUSION_LIMIT: f64 = 1e10;
+/// Steps whose kf/kr spans more decades than this are flagged as extremely stiff.
+const STIFF_DECADES: f64 = 12.0;
+
+/// Which constants the correction may change.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, clap::ValueEnum)]
+#[serde(rename_all = "lowercase")]
+pub enum Adjust {
+    /// Keep kf, change kr.
+    Kr,
+    /// Keep kr, change kf.
+    Kf,
+    /// Share the change equally (in ln k) between kf and kr.
+    Both,
+}
+
+impl Adjust {
+    pub fn name(self) -> &'static str {
+        match self {
+            Adjust::Kr => "kr",
+            Adjust::Kf => "kf",
+            Adjust::Both => "both",
+        }
+    }
+}
+
+#[derive(Debug, Clone, Serialize)]
+pub struct Audit {
+    pub temperature_k: f64,
+    pub tolerance_kj_per_mol: f64,
+    pub consistent: bool,
+    pub steps: Vec<StepFinding>,
+    pub cycles: Vec<CycleFinding>,
+    pub balance: Vec<BalanceFinding>,
+    pub warnings: Vec<Warning>,
+    pub correction: Option<Correction>,
+}
+
+#[derive(Debug, Clone, Serialize)]
+pub struct StepFinding {
+    pub step: usize,
+    pub equation: String,
+    pub reversible: bool,
+    pub kf: f64,
+    pub kr: f64,
+    pub kf_over_kr: Option<f64>,
+    /// Units of kf and kr implied by their orders (mol/L and s).
+    pub kf_units: String,
+    pub kr_units: Option<String>,
+    /// Units of Kc implied by the stoichiometry.
+    pub k_units: Option<String>,
+    pub references: Vec<Reference>,
+}
+
+#[derive(Debug, Clone, Serialize)]
+pub struct Reference {
+    /// Where the equilibrium constant comes from.
+    pub source: String,
+    #[serde(rename = "K")]
+    pub k: f64,
+    /// (kf/kr) / K.
+    pub ratio: f64,
+    pub deviation_kj_per_mol: f64,
+    /// False when K only defines kr (kr = kf/K) and so cannot disagree with it.
+    pub independent: bool,
+}
+
+#[derive(Debug, Clone, Serialize)]
+pub struct CycleFinding {
+    /// (step number, equation, coefficient) around the cycle.
+    pub steps: Vec<CycleStep>,
+    /// Π (kf/kr)^coefficient; 1 when detailed balance holds.
+    pub product: f64,
+    pub deviation_kj_per_mol: f64,
+}
+
+#[derive(Debug, Clone, Serialize)]
+pub struct CycleStep {
+    pub step: usize,
+    pub equation: String,
+    pub coefficient: f64,
+}
+
+#[derive(Debug, Clone, Serialize)]
+pub struct BalanceFinding {
+    pub step: usize,
+    pub equation: String,
+    /// Element → products minus reactants, for elements that do not balance.
+    pub unbalanced: Vec<(String, f64)>,
+    /// Charge of products minus reactants, when it is not zero.
+    pub charge: Option<f64>,
+}
+
+#[derive(Debug, Clone, Serialize)]
+pub struct Warning {
+    pub step: usize,
+    pub equation: String,
+    pub message: String,
+}
+
+#[derive(Debug, Clone, Serialize)]
+pub struct Correction {
+    pub adjust: Adjust,
+    pub steps: Vec<CorrectedStep>,
+    /// Set when the reference data contradict one another, so no correction meets all of them.
+    pub conflict: Option<String>,
+}
+
+#[derive(Debug, Clone, Serialize)]
+pub struct CorrectedStep {
+    pub step: usize,
+    pub equation: String,
+    pub kf: f64,
+    pub kr: f64,
+    pub kf_corrected: f64,
+    pub kr_corrected: f64,
+}
+
+impl Audit {
+    /// One-line findings for run summaries.
+    pub fn brief(&self) -> Vec<String> {
+        let mut lines = Vec::new();
+        for s in &self.steps {
+            for r in s
+                .references
+                .iter()
+                .filter(|r| r.independent && r.deviation_kj_per_mol.abs() > self.tolerance_kj_per_mol)
+            {
+                lines.push(format!(
+                    "step {} ({}): kf/kr differs from K ({}) by {:+.2} kJ/mol",
+                    s.step, s.equation, r.source, r.deviation_kj_per_mol
+                ));
+            }
+        }
+        for c in self
+            .cycles
+            .iter()
+            .filter(|c| c.deviation_kj_per_mol.abs() > self.tolerance_kj_per_mol)
+        {
+            let names: Vec<String> = c.steps.iter().map(|s| s.step.to_string()).collect();
+            lines.push(format!(
+                "cycle through steps {}: detailed balance off by {:+.2} kJ/mol",
+                names.join(", "),
+                c.deviation_kj_per_mol
+            ));
+        }
+        for b in &self.balance {
+            let elements: Vec<&str> = b.unbalanced.iter().map(|e| e.0.as_str()).collect();
+            let mut what = elements.join(", ");
+            if b.charge.is_some() {
+                what += if what.is_empty() { "charge" } else { " and charge" };
+            }
+            let verb = if b.unbalanced.len() + usize::from(b.charge.is_some()) == 1 {
+                "does"
+            } else {
+                "do"
+            };
+            lines.push(format!(
+                "step {} ({}): {what} {verb} not balance",
+                b.step, b.equation
+            ));
+        }
+        lines.extend(
+            self.warnings
+                .iter()
+                .map(|w| format!("step {} ({}): {}", w.step, w.equation, w.message)),
+        );
+        lines
+    }
+}
+
+/// Audits a network at its temperature.
+pub fn audit(network: &Network, tol_kj: f64, adjust: Adjust) -> Audit {
+    let rt = rt_kj(network.temperature);
+    let dissolved = |i: usize| network.species[i].phase == Phase::Dissolved;
+    let mut steps = Vec::new();
+    let mut warnings = Vec::new();
+    let mut balance = Vec::new();
+    for (j, r) in network.reactions.iter().enumerate() {
+        let number = j + 1;
+        let net = net_change(&r.reactants, &r.products);
+        let forward_order: f64 = r.forward_orders.iter().map(|e| e.1).sum();
+        let reverse_order: f64 = r.reverse_orders.iter().map(|e| e.1).sum();
+        let delta_n: f64 = net.iter().filter(|e| dissolved(e.0)).map(|e| e.1).sum();
+        let mut references = Vec::new();
+        let ratio = (r.reversible && r.kr > 0.0).then(|| r.kf / r.kr);
+        if let Some(ratio) = ratio {
+            let mut push = |source: String, k: f64, independent: bool| {
+                references.push(Reference {
+                    source,
+                    k,
+                    ratio: ratio / k,
+                    deviation_kj_per_mol: rt * (ratio / k).ln(),
+                    independent,
+                })
+            };
+            if let Some(k) = r.k_given {
+                let source = if r.kr_given {
+                    "K given"
+                } else {
+                    "K given (defines kr)"
+                };
+                push(source.into(), k, r.kr_given);
+            }
+            if let Some(dg) = r.gibbs {
+                push(format!("dG = {dg} kJ/mol"), (-dg / rt).exp(), true);
+            }
+            let formation: Option<f64> = net
+                .iter()
+                .map(|&(i, v)| network.species[i].gibbs_formation.map(|g| v * g))
+                .sum();
+            if let Some(dg) = formation {
+                push(
+                    format!("dGf of species: dG = {dg:.4} kJ/mol"),
+                    (-dg / rt).exp(),
+                    true,
+                );
+            }
+        }
+        let name = |order: f64| rate_constant_units(order);
+        steps.push(StepFinding {
+            step: number,
+            equation: r.equation.clone(),
+            reversible: r.reversible,
+            kf: r.kf,
+            kr: r.kr,
+            kf_over_kr: ratio,
+            kf_units: name(forward_order),
+            kr_units: r.reversible.then(|| name(reverse_order)),
+            k_units: r.reversible.then(|| concentration_power(delta_n)),
+            references,
+        });
+        // Element and charge balance, when every species of the step has a formula.
+        let formulas: Option<Vec<(&crate::network::Formula, f64, f64)>> = net
+            .iter()
+            .map(|&(i, v)| {
+                network.species[i]
+                    .formula
+                    .as_ref()
+                    .map(|f| (f, v, network.species[i].charge))
+            })
+            .collect();
+        if let Some(formulas) = formulas {
+            let mut elements: Vec<String> = Vec::new();
+            for (f, _, _) in &formulas {
+                for (e, _) in &f.elements {
+                    if !elements.contains(e) {
+                        elements.push(e.clone());
+                    }
+                }
+            }
+            let unbalanced: Vec<(String, f64)> = elements
+                .into_iter()
+                .map(|e| {
+                    let sum: f64 = formulas.iter().map(|(f, v, _)| v * f.count(&e)).sum();
+                    (e, sum)
+                })
+                .filter(|(_, sum)| sum.abs() > 1e-9)
+                .collect();
+            let charge: f64 = formulas.iter().map(|(_, v, z)| v * z).sum();
+            let charge = (charge.abs() > 1e-9).then_some(charge);
+            if !unbalanced.is_empty() || charge.is_some() {
+                balance.push(BalanceFinding {
+                    step: number,
+                    equation: r.equation.clone(),
+                    unbalanced,
+                    charge,
+                });
+            }
+        }
+        // Values beyond physical limits (common practice).
+        let frequency_limit = BOLTZMANN * network.temperature / PLANCK;
+        for (label, k, order) in [("kf", r.kf, forward_order), ("kr", r.kr, reverse_order)] {
+            if label == "kr" && !r.reversible {
+                continue;
+            }
+            if (order - 2.0).abs() < 1e-12 && k > DIFFUSION_LIMIT {
+                warnings.push(Warning {
+                    step: number,
+                    equation: r.equation.clone(),
+                    message: format!(
+                        "{label} = {k:.3e} L/(mol s) is above the diffusion limit of about 1e10 L/(mol s) in solution (common practice)"
+                    ),
+                });
+            }
+            if (order - 1.0).abs() < 1e-12 && k > 10.0 * frequency_limit {
+                warnings.push(Warning {
+                    step: number,
+                    equation: r.equation.clone(),
+                    message: format!(
+                        "{label} = {k:.3e} 1/s is above ten times kT/h = {frequency_limit:.2e} 1/s, the fastest a unimolecular step can be (common practice)"
+                    ),
+                });
+            }
+        }
+        if let Some(ratio) = ratio {
+            if ratio.log10().abs() > STIFF_DECADES {
+                warnings.push(Warning {
+                    step: number,
+                    equation: r.equation.clone(),
+                    message: format!(
+                        "kf/kr = {ratio:.3e} spans {:.0} decades: the step is all but one-way and makes the system extremely stiff; consider writing it with `=>`",
+                        ratio.log10().abs()
+                    ),
+                });
+            }
+        }
+    }
+    let cycles = cycles(network, rt);
+    let inconsistent_k = steps
+        .iter()
+        .flat_map(|s| &s.references)
+        .any(|r| r.independent && r.deviation_kj_per_mol.abs() > tol_kj);
+    let inconsistent_cycle = cycles.iter().any(|c| c.deviation_kj_per_mol.abs() > tol_kj);
+    let consistent = !inconsistent_k && !inconsistent_cycle && balance.is_empty();
+    let correction =
+        (inconsistent_k || inconsistent_cycle).then(|| correct(network, &steps, &cycles, adjust));
+    Audit {
+        temperature_k: network.temperature,
+        tolerance_kj_per_mol: tol_kj,
+        consistent,
+        steps,
+        cycles,
+        balance,
+        warnings,
+        correction,
+    }
+}
+
+/// Steps that take part in detailed balance: reversible with both constants positive.
+fn balanced_steps(network: &Network) -> Vec<usize> {
+    (0..network.reactions.len())
+        .filter(|&j| {
+            let r = &network.reactions[j];
+            r.reversible && r.kf > 0.0 && r.kr > 0.0
+        })
+        .collect()
+}
+
+/// A basis of the cycles among the reversible steps: vectors x with N x = 0.
+fn cycles(network: &Network, rt: f64) -> Vec<CycleFinding> {
+    let steps = balanced_steps(network);
+    let mut rows: Vec<Vec<(usize, f64)>> = vec![Vec::new(); network.n_species()];
+    for (k, &j) in steps.iter().enumerate() {
+        let r = &network.reactions[j];
+        for (i, v) in net_change(&r.reactants, &r.products) {
+            rows[i].push((k, v));
+        }
+    }
+    let mut echelon = Echelon::new(steps.len());
+    for row in &rows {
+        echelon.insert(row, 0.0);
+    }
+    echelon
+        .null_space()
+        .into_iter()
+        .map(|x| {
+            let x = whole_numbers(x);
+            let ln_product: f64 = x
+                .iter()
+                .map(|&(k, c)| {
+                    let r = &network.reactions[steps[k]];
+                    c * (r.kf / r.kr).ln()
+                })
+                .sum();
+            CycleFinding {
+                steps: x
+                    .iter()
+                    .map(|&(k, c)| CycleStep {
+                        step: steps[k] + 1,
+                        equation: network.reactions[steps[k]].equation.clone(),
+                        coefficient: c,
+                    })
+                    .collect(),
+                product: ln_product.exp(),
+                deviation_kj_per_mol: rt * ln_product,
+            }
+        })
+        .collect()
+}
+
+/// Scales a vector so its smallest entry is ±1 and snaps near-integers.
+fn whole_numbers(mut x: Vec<(usize, f64)>) -> Vec<(usize, f64)> {
+    let smallest = x.iter().fold(f64::INFINITY, |m, e| m.min(e.1.abs()));
+    for e in x.iter_mut() {
+        let v = e.1 / smallest;
+        e.1 = if (v - v.round()).abs() < 1e-9 {
+            v.round()
+        } else {
+            v
+        };
+    }
+    x
+}
+
+/// The smallest weighted change in ln k that makes every cycle and every independent K hold.
+///
+/// Only d_j = Δln kf_j − Δln kr_j enters the conditions, and for a given d_j the cheapest split
+/// costs d_j²·s_j⁻¹ with s_j the step's softness (1 when one constant moves, 2 when both share the
+/// change). Minimising Σ d_j²/s_j subject to A d = b gives d = S Aᵀ (A S Aᵀ)⁺ b; steps in no
+/// condition keep d_j = 0 exactly.
+fn correct(network: &Network, steps: &[StepFinding], cycles: &[CycleFinding], adjust: Adjust) -> Correction {
+    let balanced = balanced_steps(network);
+    let index_of = |step: usize| balanced.iter().position(|&j| j + 1 == step);
+    let mut rows: Vec<(Vec<(usize, f64)>, f64)> = Vec::new();
+    for c in cycles {
+        let row: Vec<(usize, f64)> = c
+            .steps
+            .iter()
+            .filter_map(|s| index_of(s.step).map(|k| (k, s.coefficient)))
+            .collect();
+        rows.push((row, -c.product.ln()));
+    }
+    for s in steps {
+        let Some(k) = index_of(s.step) else { continue };
+        for r in s.references.iter().filter(|r| r.independent) {
+            rows.push((vec![(k, 1.0)], -r.ratio.ln()));
+        }
+    }
+    let n = balanced.len();
+    let m = rows.len();
+    let softness = if adjust == Adjust::Both { 2.0 } else { 1.0 };
+    let mut a = nalgebra::DMatrix::<f64>::zeros(m, n);
+    let mut b = nalgebra::DVector::<f64>::zeros(m);
+    for (i, (row, rhs)) in rows.iter().enumerate() {
+        for &(k, v) in row {
+            a[(i, k)] += v;
+        }
+        b[i] = *rhs;
+    }
+    let ass = &a * a.transpose() * softness;
+    let y = ass
+        .clone()
+        .pseudo_inverse(1e-12 * ass.norm().max(f64::MIN_POSITIVE))
+        .map(|p| p * &b)
+        .unwrap_or_else(|_| nalgebra::DVector::zeros(m));
+    let d = a.transpose() * y * softness;
+    let residual = (&a * &d - &b).amax();
+    let conflict = (residual > 1e-9).then(|| {
+        format!(
+            "the reference data contradict one another (largest unmet condition {:.3} kJ/mol); the correction meets them in the least-squares sense",
+            residual * rt_kj(network.temperature)
+        )
+    });
+    let corrected = balanced
+        .iter()
+        .enumerate()
+        .filter(|(k, _)| d[*k].abs() > 1e-15)
+        .map(|(k, &j)| {
+            let r = &network.reactions[j];
+            let (df, dr) = match adjust {
+                Adjust::Kr => (0.0, -d[k]),
+                Adjust::Kf => (d[k], 0.0),
+                Adjust::Both => (d[k] / 2.0, -d[k] / 2.0),
+            };
+            CorrectedStep {
+                step: j + 1,
+                equation: r.equation.clone(),
+                kf: r.kf,
+                kr: r.kr,
+                kf_corrected: r.kf * df.exp(),
+                kr_corrected: r.kr * dr.exp(),
+            }
+        })
+        .collect();
+    Correction {
+        adjust,
+        steps: corrected,
+        conflict,
+    }
+}
+
+/// Units of a rate constant of total order n with concentrations in mol/L and time in s.
+pub fn rate_constant_units(order: f64) -> String {
+    let power = 1.0 - order;
+    if power.abs() < 1e-12 {
+        "1/s".into()
+    } else if (power - 1.0).abs() < 1e-12 {
+        "mol/(L s)".into()
+    } else if (power + 1.0).abs() < 1e-12 {
+        "L/(mol s)".into()
+    } else if power < 0.0 && (power - power.round()).abs() < 1e-12 {
+        format!("L^{0}/(mol^{0} s)", -power.round() as i64)
+    } else {
+        format!("(mol/L)^{power}/s")
+    }
+}
+
+/// (mol/L)^n, with the common special cases named.
+fn concentration_power(n: f64) -> String {
+    if n.abs() < 1e-12 {
+        "dimensionless".into()
+    } else if (n - 1.0).abs() < 1e-12 {
+        "mol/L".into()
+    } else if (n + 1.0).abs() < 1e-12 {
+        "L/mol".into()
+    } else {
+        format!("(mol/L)^{n}")
+    }
+}
+
+/// The network file's text with the corrected constants written in (comments and layout kept).
+/// A step whose kr was defined by K gets an explicit kr and loses K, so the file says what it
+/// now means.
+pub fn corrected_network_text(original: &str, correction: &Correction) -> Result<String, String> {
+    let mut doc: toml_edit::DocumentMut = original
+        .parse()
+        .map_err(|e| format!("cannot edit the file: {e}"))?;
+    let reactions = doc
+        .get_mut("reaction")
+        .and_then(|r| r.as_array_of_tables_mut())
+        .ok_or("the file has no [[reaction]] tables")?;
+    for step in &correction.steps {
+        let table = reactions
+            .get_mut(step.step - 1)
+            .ok_or("reaction numbering changed")?;
+        for (key, old, new) in [
+            ("kf", step.kf, step.kf_corrected),
+            ("kr", step.kr, step.kr_corrected),
+        ] {
+            if new != old {
+                let mut value = toml_edit::value(new);
+                if let Some(v) = value.as_value_mut() {
+                    v.decor_mut()
+                        .set_suffix(format!("  # corrected by kinequil check, was {old}"));
+                }
+                table[key] = value;
+            }
+        }
+        if step.kr_corrected != step.kr && table.contains_key("K") {
+            table.remove("K");
+        }
+    }
+    let header = format!(
+        "# Rate constants corrected by `kinequil check` (adjusting {}) to satisfy detailed balance\n\
+         # and the known equilibrium constants; the original file is unchanged.\n",
+        correction.adjust.name()
+    );
+    Ok(header + &doc.to_string())
+}
