@@ -197,3 +197,57 @@ fn equilibrium_command_reports_composition_extents_and_conversion() {
     assert_eq!(out.status.code(), Some(1));
     assert!(String::from_utf8_lossy(&out.stderr).contains("no equilibrium exists"));
 }
+
+#[test]
+fn check_exits_0_1_2_and_writes_corrections_to_a_new_file() {
+    let dir = tempfile::tempdir().unwrap();
+    let consistent = write_case(dir.path(), "ok.toml", GOOD);
+    let out = kinequil(&["check", &consistent]);
+    assert_eq!(
+        out.status.code(),
+        Some(0),
+        "{}",
+        String::from_utf8_lossy(&out.stdout)
+    );
+    assert!(String::from_utf8_lossy(&out.stdout).contains("CONSISTENT"));
+
+    let cycle = "[species]\nA = 1.0\nB = 0.0\nC = 0.0\n\n[[reaction]]\nequation = \"A <=> B\"\nkf = 1.0\nkr = 0.5\n\n\
+                 [[reaction]]\nequation = \"B <=> C\"\nkf = 1.0\nK = 1.0\n\n[[reaction]]\nequation = \"C <=> A\"\nkf = 1.0\nkr = 1.0\n";
+    let broken = write_case(dir.path(), "cycle.toml", cycle);
+    let out = kinequil(&["check", &broken, "--json"]);
+    assert_eq!(out.status.code(), Some(1));
+    let report: serde_json::Value = serde_json::from_slice(&out.stdout).unwrap();
+    for key in ["kf_over_kr", "references", "kf_units"] {
+        assert!(report["steps"][0].get(key).is_some(), "step lacks {key}");
+    }
+    assert!(report["steps"][1]["references"][0]
+        .get("deviation_kj_per_mol")
+        .is_some());
+    assert!(report["steps"][1]["references"][0].get("K").is_some());
+    assert_eq!(report["cycles"][0]["steps"].as_array().unwrap().len(), 3);
+    assert!(report["correction"]["steps"].as_array().is_some());
+
+    let fixed = dir.path().join("fixed.toml");
+    let fixed_str = fixed.to_str().unwrap();
+    let before = std::fs::read_to_string(&broken).unwrap();
+    let out = kinequil(&["check", &broken, "--write-corrected", fixed_str]);
+    assert_eq!(out.status.code(), Some(1), "the original is still inconsistent");
+    assert_eq!(
+        std::fs::read_to_string(&broken).unwrap(),
+        before,
+        "the original is untouched"
+    );
+    let out = kinequil(&["check", fixed_str]);
+    assert_eq!(
+        out.status.code(),
+        Some(0),
+        "{}",
+        String::from_utf8_lossy(&out.stdout)
+    );
+    // Writing again is refused without --force.
+    let out = kinequil(&["check", &broken, "--write-corrected", fixed_str]);
+    assert_eq!(out.status.code(), Some(2));
+
+    let bad = write_case(dir.path(), "bad.toml", "[species]\nA = 1.0\n");
+    assert_eq!(kinequil(&["check", &bad]).status.code(), Some(2));
+}

@@ -3,6 +3,7 @@
 mod util;
 
 mod analytic;
+mod audit;
 mod cli;
 mod docs;
 mod equilibrium;

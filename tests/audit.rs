@@ -1,0 +1,208 @@
+//! The consistency audit against hand calculations, the Wegscheider condition and a published
+//! thermochemical table.
+
+use kinequil::audit::{audit, corrected_network_text, Adjust};
+use kinequil::constants::GAS_CONSTANT;
+
+use crate::util::{network, rel};
+
+/// A <=> B <=> C <=> A with Π kf/kr = 2/kr3 around the cycle, and a side
+/// step A <=> D that belongs to no cycle.
+fn triangle(kr3: f64) -> String {
+    format!(
+        r#"
+[species]
+A = 1.0
+B = 0.0
+C = 0.0
+D = 0.0
+
+[[reaction]]
+equation = "A <=> B"
+kf = 1.0
+kr = 0.5
+
+[[reaction]]
+equation = "B <=> C"
+kf = 2.0
+kr = 0.8
+
+[[reaction]]
+equation = "C <=> A"
+kf = 0.4
+kr = {kr3}
+
+[[reaction]]
+equation = "A <=> D"
+kf = 0.3
+kr = 0.1
+"#
+    )
+}
+
+const RT_298: f64 = GAS_CONSTANT * 298.15 / 1000.0;
+
+#[test]
+fn wegscheider_condition_on_a_three_step_cycle() {
+    // Wegscheider (1901): around a cycle of reversible steps, Π kf/kr = 1. Here
+    // (1/0.5)(2/0.8)(0.4/kr3) = 2/kr3, so kr3 = 2 is consistent and kr3 = 1 is off by 2.
+    let consistent = audit(&network(&triangle(2.0)), 0.1, Adjust::Kr);
+    assert_eq!(consistent.cycles.len(), 1, "one independent cycle");
+    assert!(consistent.cycles[0].deviation_kj_per_mol.abs() < 1e-12);
+    assert!(consistent.consistent);
+    assert!(consistent.correction.is_none());
+
+    let broken = audit(&network(&triangle(1.0)), 0.1, Adjust::Kr);
+    let cycle = &broken.cycles[0];
+    let steps: Vec<usize> = cycle.steps.iter().map(|s| s.step).collect();
+    assert_eq!(steps, vec![1, 2, 3], "the cycle names its steps");
+    // Deviation RT ln 2 at 298.15 K with CODATA R: pure arithmetic, 1e-12 relative.
+    assert!(rel(cycle.deviation_kj_per_mol.abs(), RT_298 * 2f64.ln()) < 1e-12);
+    assert!(!broken.consistent);
+}
+
+#[test]
+fn correction_worked_by_hand() {
+    // Adjusting kr with equal weights: minimise Σ d² subject to d1 + d2 + d3 = −ln 2 (the cycle),
+    // so each d = −ln(2)/3: every kr of the cycle grows by 2^(1/3); kf and the side step stay.
+    let text = triangle(1.0);
+    let net = network(&text);
+    let found = audit(&net, 0.1, Adjust::Kr);
+    let correction = found.correction.as_ref().expect("a correction");
+    assert_eq!(correction.steps.len(), 3, "the side step is not touched");
+    for step in &correction.steps {
+        assert_eq!(step.kf_corrected, step.kf, "kf is kept exactly");
+        assert!(
+            rel(step.kr_corrected / step.kr, 2f64.powf(1.0 / 3.0)) < 1e-12,
+            "step {}",
+            step.step
+        );
+    }
+    let fixed_text = corrected_network_text(&text, correction).unwrap();
+    let fixed = network(&fixed_text);
+    let again = audit(&fixed, 0.1, Adjust::Kr);
+    assert!(
+        again.cycles[0].deviation_kj_per_mol.abs() < 1e-9,
+        "the cycle condition holds after correction"
+    );
+    assert!(again.consistent);
+    // The side step A <=> D keeps its constants exactly.
+    assert_eq!((fixed.reactions[3].kf, fixed.reactions[3].kr), (0.3, 0.1));
+
+    // Sharing the change: kf shrinks and kr grows by 2^(1/6) each.
+    let shared = audit(&net, 0.1, Adjust::Both).correction.unwrap();
+    for step in &shared.steps {
+        assert!(rel(step.kf / step.kf_corrected, 2f64.powf(1.0 / 6.0)) < 1e-12);
+        assert!(rel(step.kr_corrected / step.kr, 2f64.powf(1.0 / 6.0)) < 1e-12);
+    }
+}
+
+#[test]
+fn k_from_the_crc_table_for_the_water_gas_shift() {
+    // CO + H2O <=> CO2 + H2 (gas, 298.15 K) from the standard Gibbs energies of formation of the
+    // CRC Handbook of Chemistry and Physics, 95th edition (2014), as committed in
+    // tests/reference/crc_thermo.json by tests/reference/crc_thermo.py. Δn = 0, so the
+    // concentration-based K equals the standard K.
+    let table: serde_json::Value = serde_json::from_str(include_str!("reference/crc_thermo.json")).unwrap();
+    let gf = |s: &str| table["substances"][s]["dGf"].as_f64().unwrap();
+    let dg = gf("CO2") + gf("H2") - gf("CO") - gf("H2O");
+    let k_hand = (-dg * 1000.0 / (GAS_CONSTANT * 298.15)).exp();
+    // The textbook magnitude of this K at 25 °C is about 1e5 (common practice).
+    assert!(k_hand > 5e4 && k_hand < 2e5, "K = {k_hand}");
+    let text = format!(
+        r#"
+[species]
+CO = {{ initial = 1.0, dGf = {}, formula = "CO" }}
+H2O = {{ initial = 1.0, dGf = {}, formula = "H2O" }}
+CO2 = {{ initial = 0.0, dGf = {}, formula = "CO2" }}
+H2 = {{ initial = 0.0, dGf = {}, formula = "H2" }}
+
+[[reaction]]
+equation = "CO + H2O <=> CO2 + H2"
+kf = 2.0
+kr = {}
+"#,
+        gf("CO"),
+        gf("H2O"),
+        gf("CO2"),
+        gf("H2"),
+        2.0 / k_hand * 2.0
+    );
+    let found = audit(&network(&text), 0.1, Adjust::Kr);
+    let reference = &found.steps[0].references[0];
+    // Same formula, same constants: agreement to rounding (1e-12 relative).
+    assert!(
+        rel(reference.k, k_hand) < 1e-12,
+        "audit K {} vs {k_hand}",
+        reference.k
+    );
+    // kf/kr was set to half of K: the deviation is RT ln(1/2).
+    assert!(rel(reference.deviation_kj_per_mol, -RT_298 * 2f64.ln()) < 1e-9);
+    assert!(!found.consistent);
+    assert!(found.balance.is_empty(), "the water-gas shift balances");
+}
+
+#[test]
+fn unbalanced_atoms_and_charge_are_named() {
+    let text = r#"
+[species]
+CH4 = { initial = 1.0, formula = "CH4" }
+O2 = { initial = 2.0, formula = "O2" }
+CO2 = { initial = 0.0, formula = "CO2" }
+H2O = { initial = 0.0, formula = "H2O" }
+Fe3 = { initial = 1.0, formula = "Fe", charge = 3 }
+Fe2 = { initial = 0.0, formula = "Fe", charge = 2 }
+
+[[reaction]]
+equation = "CH4 + O2 => CO2 + H2O"
+kf = 1.0
+
+[[reaction]]
+equation = "Fe3 <=> Fe2"
+kf = 1.0
+kr = 1.0
+"#;
+    let found = audit(&network(text), 0.1, Adjust::Kr);
+    assert_eq!(found.balance.len(), 2);
+    let combustion = &found.balance[0];
+    // Products minus reactants: H 2 − 4 = −2, O (2 + 1) − 2 = +1; C balances.
+    assert_eq!(
+        combustion.unbalanced,
+        vec![("H".to_string(), -2.0), ("O".to_string(), 1.0)]
+    );
+    assert_eq!(found.balance[1].charge, Some(-1.0));
+    assert!(!found.consistent);
+    assert!(found
+        .brief()
+        .iter()
+        .any(|line| line.contains("H, O do not balance")));
+}
+
+#[test]
+fn implied_units_and_physical_limits() {
+    let text = r#"
+[species]
+A = 1.0
+B = 1.0
+C = 0.0
+
+[[reaction]]
+equation = "A + B <=> C"
+kf = 5.0e10
+kr = 1.0e-12
+"#;
+    let found = audit(&network(text), 0.1, Adjust::Kr);
+    let step = &found.steps[0];
+    assert_eq!(step.kf_units, "L/(mol s)");
+    assert_eq!(step.kr_units.as_deref(), Some("1/s"));
+    assert_eq!(step.k_units.as_deref(), Some("L/mol"));
+    let messages: Vec<&str> = found.warnings.iter().map(|w| w.message.as_str()).collect();
+    assert!(
+        messages.iter().any(|m| m.contains("diffusion limit")),
+        "{messages:?}"
+    );
+    assert!(
+        messages.iter().any(|m| m.contains("extremely stiff")),
+        "{messages:?}"
+    );
+}
