@@ -16,7 +16,7 @@
 use serde::Serialize;
 
 use crate::constants::{rt_kj, BOLTZMANN, PLANCK};
-use crate::network::{Network, Phase};
+use crate::network::Network;
 use crate::stoich::{net_change, Echelon};
 
 /// Default tolerance on deviations, kJ/mol (about 4 % in K at 298 K).
@@ -196,7 +196,7 @@ impl Audit {
 /// Audits a network at its temperature.
 pub fn audit(network: &Network, tol_kj: f64, adjust: Adjust) -> Audit {
     let rt = rt_kj(network.temperature);
-    let dissolved = |i: usize| network.species[i].phase == Phase::Dissolved;
+    let dissolved = |i: usize| network.species[i].in_rate_laws();
     let mut steps = Vec::new();
     let mut warnings = Vec::new();
     let mut balance = Vec::new();

@@ -9,7 +9,7 @@
 //! equilibrium exists (the dual of the free-energy minimisation, common practice in equilibrium
 //! solvers).
 
-use crate::network::{Network, Phase};
+use crate::network::Network;
 use crate::stoich::{Echelon, Insert, Stoichiometry};
 
 /// K equations that fail to close around a cycle by more than this (in ln K) are inconsistent.
@@ -97,7 +97,7 @@ pub fn solve_from(
     c0: &[f64],
 ) -> Result<Equilibrium, NoEquilibrium> {
     let n = network.n_species();
-    let dissolved = |i: usize| network.species[i].phase == Phase::Dissolved;
+    let dissolved = |i: usize| network.species[i].in_rate_laws();
     let one_way: Vec<String> = network
         .reactions
         .iter()

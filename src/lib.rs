@@ -18,3 +18,4 @@ pub mod relaxation;
 pub mod report;
 pub mod run;
 pub mod stoich;
+pub mod units;

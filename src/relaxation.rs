@@ -12,7 +12,7 @@
 
 use serde::Serialize;
 
-use crate::network::{Network, Phase};
+use crate::network::Network;
 use crate::stoich::Echelon;
 
 /// Above this many species the dense singular value decomposition is skipped.
@@ -38,7 +38,7 @@ pub struct Share {
 /// apply.
 pub fn modes(network: &Network, c_eq: &[f64]) -> Result<Vec<Mode>, String> {
     let positive: Vec<usize> = (0..network.n_species())
-        .filter(|&i| network.species[i].phase == Phase::Dissolved && c_eq[i] > 0.0)
+        .filter(|&i| network.species[i].in_rate_laws() && c_eq[i] > 0.0)
         .collect();
     if positive.len() > MAX_SPECIES {
         return Err(format!("relaxation analysis is limited to {MAX_SPECIES} species"));

@@ -88,7 +88,7 @@ const CASES: &[(&str, &str, Option<usize>, &str, &str)] = &[
         "[species]\nA = 1.0\n\n[[reaction]]\nequation = \"A => 0\"\nkf = \"fast\"\n",
         Some(6),
         "reaction[1].kf",
-        "expected a number",
+        "is not a number with units",
     ),
     (
         "misspelt key",

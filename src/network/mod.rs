@@ -14,7 +14,9 @@ use std::path::{Path, PathBuf};
 use toml::de::{DeTable, DeValue};
 use toml::Spanned;
 
+use crate::constants::GAS_CONSTANT;
 use crate::error::{Error, InputError};
+use crate::units::{parse_quantity, Dimension};
 pub use equation::{parse_equation, ParsedEquation};
 pub use formula::{parse_formula, Formula};
 
@@ -28,6 +30,8 @@ pub enum Phase {
     Dissolved,
     /// A pure solid or liquid: activity 1, so it is left out of rate laws and K.
     Pure,
+    /// An ideal gas in the closed rigid vessel: its concentration (mol/L) is p/(RT).
+    Gas,
 }
 
 #[derive(Debug, Clone, PartialEq)]
@@ -44,6 +48,40 @@ pub struct Species {
     pub charge: f64,
     /// Standard Gibbs energy of formation, kJ/mol, for the audit.
     pub gibbs_formation: Option<f64>,
+    /// Standard enthalpy of formation, kJ/mol, for the audit.
+    pub enthalpy_formation: Option<f64>,
+}
+
+impl Species {
+    /// True for species whose concentration enters rate laws and K (solutes and gases).
+    pub fn in_rate_laws(&self) -> bool {
+        self.phase != Phase::Pure
+    }
+}
+
+/// Modified Arrhenius parameters: k(T) = A · T^n · exp(−Ea / (R T)), T in K.
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub struct Arrhenius {
+    /// Pre-exponential factor in the rate constant's units (per K^n).
+    pub a: f64,
+    /// Activation energy, J/mol.
+    pub ea: f64,
+    pub n: f64,
+}
+
+impl Arrhenius {
+    pub fn at(&self, t: f64) -> f64 {
+        self.a * t.powf(self.n) * (-self.ea / (GAS_CONSTANT * t)).exp()
+    }
+}
+
+/// The standard pressure for gas-phase standard equilibrium constants, Pa (1 bar, IUPAC).
+pub const STANDARD_PRESSURE: f64 = 1e5;
+
+/// Kc (mol/L based) from a standard equilibrium constant K° (1 mol/L for solutes, 1 bar for
+/// gases): Kc = K° (p°/(RT))^Δn_gas with concentrations in mol/L (a factor 1000 L/m³).
+pub fn kc_from_standard(k0: f64, delta_n_gas: f64, t: f64) -> f64 {
+    k0 * (STANDARD_PRESSURE / (1000.0 * GAS_CONSTANT * t)).powf(delta_n_gas)
 }
 
 /// One step of the network with its resolved mass-action (or user-ordered) rate law.
@@ -65,6 +103,13 @@ pub struct Reaction {
     pub k_given: Option<f64>,
     /// True when kr was written in the file (not derived from K).
     pub kr_given: bool,
+    /// How the equilibrium constant was given (for reports), when it was.
+    pub k_source: Option<String>,
+    /// Standard enthalpy of reaction from the K or Kp data, kJ/mol, when given.
+    pub enthalpy: Option<f64>,
+    /// Arrhenius parameters behind kf and kr, when given that way.
+    pub kf_arrhenius: Option<Arrhenius>,
+    pub kr_arrhenius: Option<Arrhenius>,
     /// Standard Gibbs energy of reaction as given in the file, kJ/mol.
     pub gibbs: Option<f64>,
     /// (species index, order) of each factor of the forward rate; pure phases left out.
@@ -87,16 +132,35 @@ pub struct Network {
 impl Network {
     /// Reads and validates a network file.
     pub fn from_file(path: &Path) -> Result<Network, Error> {
+        Network::from_file_at(path, None)
+    }
+
+    /// Reads a network file, at `temperature` (K) instead of the file's when given: every
+    /// temperature-dependent constant and partial pressure is evaluated there.
+    pub fn from_file_at(path: &Path, temperature: Option<f64>) -> Result<Network, Error> {
         let text = std::fs::read_to_string(path).map_err(|source| Error::Read {
             path: path.to_path_buf(),
             source,
         })?;
-        Ok(Network::from_text(&text, path)?)
+        Ok(Network::from_text_at(&text, path, temperature)?)
     }
 
     /// Parses and validates network text; `source` names the file in messages.
     pub fn from_text(text: &str, source: &Path) -> Result<Network, InputError> {
-        Reader { file: source, text }.read()
+        Network::from_text_at(text, source, None)
+    }
+
+    pub fn from_text_at(text: &str, source: &Path, temperature: Option<f64>) -> Result<Network, InputError> {
+        Reader {
+            file: source,
+            text,
+            temperature_override: temperature,
+        }
+        .read()
+    }
+
+    pub fn has_gas(&self) -> bool {
+        self.species.iter().any(|s| s.phase == Phase::Gas)
     }
 
     pub fn n_species(&self) -> usize {
@@ -125,6 +189,7 @@ impl Network {
 struct Reader<'a> {
     file: &'a Path,
     text: &'a str,
+    temperature_override: Option<f64>,
 }
 
 type Value<'i> = Spanned<DeValue<'i>>;
@@ -170,7 +235,7 @@ impl<'a> Reader<'a> {
         };
         let temperature = match root.get("temperature") {
             Some(v) => {
-                let t = self.number(v, "temperature")?;
+                let t = self.quantity(v, "temperature", Dimension::TEMPERATURE, 1.0)?;
                 if t <= 0.0 {
                     return Err(self.error(Some(v.span()), "temperature", "must be above 0 K"));
                 }
@@ -178,8 +243,9 @@ impl<'a> Reader<'a> {
             }
             None => DEFAULT_TEMPERATURE_K,
         };
-        let species = self.species(root.get("species"))?;
-        let reactions = self.reactions(root.get("reaction"), &species)?;
+        let temperature = self.temperature_override.unwrap_or(temperature);
+        let species = self.species(root.get("species"), temperature)?;
+        let reactions = self.reactions(root.get("reaction"), &species, temperature)?;
         let title = if title.is_empty() {
             self.file
                 .file_stem()
@@ -197,7 +263,7 @@ impl<'a> Reader<'a> {
         })
     }
 
-    fn species(&self, value: Option<&Value<'_>>) -> Result<Vec<Species>, InputError> {
+    fn species(&self, value: Option<&Value<'_>>, t: f64) -> Result<Vec<Species>, InputError> {
         let Some(value) = value else {
             return Err(self.error(
                 None,
@@ -228,15 +294,17 @@ impl<'a> Reader<'a> {
                 formula: None,
                 charge: 0.0,
                 gibbs_formation: None,
+                enthalpy_formation: None,
             };
+            let mut initial: Option<&Value<'_>> = None;
             match entry.get_ref() {
                 DeValue::Table(props) => {
                     for (prop, v) in props.iter() {
                         let sub = format!("{field}.{}", prop.get_ref());
                         match prop.get_ref().as_ref() {
-                            "initial" => item.initial = self.concentration(v, &sub)?,
+                            "initial" => initial = Some(v),
                             "atol" => {
-                                let atol = self.number(v, &sub)?;
+                                let atol = self.quantity(v, &sub, Dimension::concentration(), 1.0)?;
                                 if atol <= 0.0 {
                                     return Err(self.error(Some(v.span()), &sub, "must be positive"));
                                 }
@@ -248,17 +316,19 @@ impl<'a> Reader<'a> {
                                     Some(parse_formula(text).map_err(|m| self.error(Some(v.span()), &sub, m))?);
                             }
                             "charge" => item.charge = self.number(v, &sub)?,
-                            "dGf" => item.gibbs_formation = Some(self.number(v, &sub)?),
+                            "dGf" => item.gibbs_formation = Some(self.energy_kj(v, &sub)?),
+                            "dHf" => item.enthalpy_formation = Some(self.energy_kj(v, &sub)?),
                             "phase" => {
                                 item.phase = match self.string(v, &sub)? {
                                     "solution" | "dissolved" => Phase::Dissolved,
                                     "solid" | "liquid" => Phase::Pure,
+                                    "gas" => Phase::Gas,
                                     other => {
                                         return Err(self.error(
                                             Some(v.span()),
                                             &sub,
                                             format!(
-                                        "unknown phase `{other}`; use \"solution\", \"solid\" or \"liquid\""
+                                        "unknown phase `{other}`; use \"solution\", \"gas\", \"solid\" or \"liquid\""
                                     ),
                                         ))
                                     }
@@ -269,21 +339,34 @@ impl<'a> Reader<'a> {
                                     Some(prop.span()),
                                     &sub,
                                     format!(
-                                        "unknown property `{other}`; expected initial, phase, atol, formula, charge or dGf"
+                                        "unknown property `{other}`; expected initial, phase, atol, formula, charge, dGf or dHf"
                                     ),
                                 ))
                             }
                         }
                     }
                 }
-                _ => item.initial = self.concentration(entry, &field)?,
+                _ => initial = Some(entry),
+            }
+            if let Some(v) = initial {
+                let sub = if matches!(entry.get_ref(), DeValue::Table(_)) {
+                    format!("{field}.initial")
+                } else {
+                    field.clone()
+                };
+                item.initial = self.initial_amount(v, &sub, item.phase, t)?;
             }
             species.push(item);
         }
         Ok(species)
     }
 
-    fn reactions(&self, value: Option<&Value<'_>>, species: &[Species]) -> Result<Vec<Reaction>, InputError> {
+    fn reactions(
+        &self,
+        value: Option<&Value<'_>>,
+        species: &[Species],
+        t: f64,
+    ) -> Result<Vec<Reaction>, InputError> {
         let Some(value) = value else {
             return Err(self.error(
                 None,
@@ -304,15 +387,30 @@ impl<'a> Reader<'a> {
         items
             .iter()
             .enumerate()
-            .map(|(i, item)| self.reaction(item, &format!("reaction[{}]", i + 1), species))
+            .map(|(i, item)| self.reaction(item, &format!("reaction[{}]", i + 1), species, t))
             .collect()
     }
 
-    fn reaction(&self, item: &Value<'_>, field: &str, species: &[Species]) -> Result<Reaction, InputError> {
+    fn reaction(
+        &self,
+        item: &Value<'_>,
+        field: &str,
+        species: &[Species],
+        t: f64,
+    ) -> Result<Reaction, InputError> {
         let DeValue::Table(table) = item.get_ref() else {
             return Err(self.error(Some(item.span()), field, "must be a table with equation and kf"));
         };
-        let known = ["equation", "kf", "kr", "K", "dG", "orders", "reverse_orders"];
+        let known = [
+            "equation",
+            "kf",
+            "kr",
+            "K",
+            "Kp",
+            "dG",
+            "orders",
+            "reverse_orders",
+        ];
         for (key, _) in table.iter() {
             if !known.contains(&key.get_ref().as_ref()) {
                 return Err(self.error(
@@ -353,60 +451,6 @@ impl<'a> Reader<'a> {
         let reactants = resolve(&parsed.reactants)?;
         let products = resolve(&parsed.products)?;
 
-        let constant = |key: &str| -> Result<Option<f64>, InputError> {
-            table
-                .get(key)
-                .map(|v| {
-                    let sub = format!("{field}.{key}");
-                    let x = self.number(v, &sub)?;
-                    if x < 0.0 {
-                        return Err(self.error(Some(v.span()), &sub, "must not be negative"));
-                    }
-                    Ok(x)
-                })
-                .transpose()
-        };
-        let kf = constant("kf")?.ok_or_else(|| {
-            self.error(
-                Some(item.span()),
-                &format!("{field}.kf"),
-                "missing: every reaction needs a forward rate constant kf",
-            )
-        })?;
-        let kr_given = constant("kr")?;
-        let k_given = constant("K")?;
-        let kr = if parsed.reversible {
-            match (kr_given, k_given) {
-                (Some(kr), _) => kr,
-                (None, Some(k)) => {
-                    if k <= 0.0 {
-                        return Err(self.error(
-                            table.get("K").map(|v| v.span()),
-                            &format!("{field}.K"),
-                            "must be positive",
-                        ));
-                    }
-                    kf / k
-                }
-                (None, None) => {
-                    return Err(self.error(
-                        Some(eq_value.span()),
-                        field,
-                        "a reversible step (`<=>`) needs either kr or the equilibrium constant K",
-                    ))
-                }
-            }
-        } else {
-            if let Some(key) = ["kr", "K"].into_iter().find(|k| table.get(*k).is_some()) {
-                let sub = format!("{field}.{key}");
-                return Err(self.error(
-                    table.get(key).map(|v| v.span()),
-                    &sub,
-                    "a one-way step (`=>`) takes only kf; write `<=>` for a reversible step",
-                ));
-            }
-            0.0
-        };
         let forward_orders = self.orders(
             table.get("orders"),
             &format!("{field}.orders"),
@@ -430,6 +474,84 @@ impl<'a> Reader<'a> {
             }
             Vec::new()
         };
+        let forward_order: f64 = forward_orders.iter().map(|e| e.1).sum();
+        let reverse_order: f64 = reverse_orders.iter().map(|e| e.1).sum();
+        let kf_field = format!("{field}.kf");
+        let Some(kf_value) = table.get("kf") else {
+            return Err(self.error(
+                Some(item.span()),
+                &kf_field,
+                "missing: every reaction needs a forward rate constant kf",
+            ));
+        };
+        let (kf, kf_arrhenius) = self.rate_constant(kf_value, &kf_field, forward_order, t)?;
+        let kr_read = match table.get("kr") {
+            Some(v) => Some(self.rate_constant(v, &format!("{field}.kr"), reverse_order, t)?),
+            None => None,
+        };
+        // Δn over the species whose concentrations enter K, and over the gases alone.
+        let net = crate::stoich::net_change(&reactants, &products);
+        let delta_n: f64 = net
+            .iter()
+            .filter(|e| species[e.0].in_rate_laws())
+            .map(|e| e.1)
+            .sum();
+        let delta_n_gas: f64 = net
+            .iter()
+            .filter(|e| species[e.0].phase == Phase::Gas)
+            .map(|e| e.1)
+            .sum();
+        let all_gas = net.iter().all(|e| species[e.0].phase != Phase::Dissolved);
+        let equilibrium = match (table.get("K"), table.get("Kp")) {
+            (Some(_), Some(v)) => {
+                return Err(self.error(
+                    Some(v.span()),
+                    &format!("{field}.Kp"),
+                    "give either K or Kp, not both",
+                ));
+            }
+            (Some(v), None) => {
+                Some(self.equilibrium_constant(v, &format!("{field}.K"), false, delta_n, delta_n_gas, t)?)
+            }
+            (None, Some(v)) => {
+                if !all_gas {
+                    return Err(self.error(
+                        Some(v.span()),
+                        &format!("{field}.Kp"),
+                        "Kp needs a gas-phase step (species with phase = \"gas\", or pure phases)",
+                    ));
+                }
+                Some(self.equilibrium_constant(v, &format!("{field}.Kp"), true, delta_n, delta_n_gas, t)?)
+            }
+            (None, None) => None,
+        };
+        let (kr, kr_arrhenius) = if parsed.reversible {
+            match (kr_read, &equilibrium) {
+                (Some(kr), _) => kr,
+                (None, Some(k)) => (kf / k.kc, None),
+                (None, None) => {
+                    return Err(self.error(
+                        Some(eq_value.span()),
+                        field,
+                        "a reversible step (`<=>`) needs either kr or the equilibrium constant K (or Kp)",
+                    ))
+                }
+            }
+        } else {
+            if let Some(key) = ["kr", "K", "Kp"].into_iter().find(|k| table.get(*k).is_some()) {
+                let sub = format!("{field}.{key}");
+                return Err(self.error(
+                    table.get(key).map(|v| v.span()),
+                    &sub,
+                    "a one-way step (`=>`) takes only kf; write `<=>` for a reversible step",
+                ));
+            }
+            (0.0, None)
+        };
+        let gibbs = match table.get("dG") {
+            Some(v) => Some(self.energy_kj(v, &format!("{field}.dG"))?),
+            None => None,
+        };
         Ok(Reaction {
             equation: equation.to_string(),
             line,
@@ -438,12 +560,13 @@ impl<'a> Reader<'a> {
             reversible: parsed.reversible,
             kf,
             kr,
-            k_given,
-            kr_given: kr_given.is_some(),
-            gibbs: match table.get("dG") {
-                Some(v) => Some(self.number(v, &format!("{field}.dG"))?),
-                None => None,
-            },
+            k_given: equilibrium.as_ref().map(|k| k.kc),
+            kr_given: table.get("kr").is_some(),
+            k_source: equilibrium.as_ref().map(|k| k.source.clone()),
+            enthalpy: equilibrium.as_ref().and_then(|k| k.enthalpy),
+            kf_arrhenius,
+            kr_arrhenius,
+            gibbs,
             forward_orders,
             reverse_orders,
         })
@@ -489,16 +612,293 @@ impl<'a> Reader<'a> {
                 }
             }
         }
-        orders.retain(|&(i, order)| species[i].phase == Phase::Dissolved && order > 0.0);
+        orders.retain(|&(i, order)| species[i].in_rate_laws() && order > 0.0);
         Ok(orders)
     }
 
-    fn concentration(&self, value: &Value<'_>, field: &str) -> Result<f64, InputError> {
-        let x = self.number(value, field)?;
-        if x < 0.0 {
+    /// A quantity in internal units: a plain number times `plain_factor`, or a string with units
+    /// of the expected dimension.
+    fn quantity(
+        &self,
+        value: &Value<'_>,
+        field: &str,
+        expected: Dimension,
+        plain_factor: f64,
+    ) -> Result<f64, InputError> {
+        match value.get_ref() {
+            DeValue::String(text) => {
+                let q = parse_quantity(text).map_err(|m| self.error(Some(value.span()), field, m))?;
+                if !q.dimension.same(expected) {
+                    return Err(self.error(
+                        Some(value.span()),
+                        field,
+                        format!(
+                            "`{text}` has units of {}, expected units of {expected}",
+                            q.dimension
+                        ),
+                    ));
+                }
+                Ok(q.value)
+            }
+            _ => Ok(self.number(value, field)? * plain_factor),
+        }
+    }
+
+    /// An energy per mole in kJ/mol (plain numbers are kJ/mol).
+    fn energy_kj(&self, value: &Value<'_>, field: &str) -> Result<f64, InputError> {
+        Ok(self.quantity(value, field, Dimension::molar_energy(), 1000.0)? / 1000.0)
+    }
+
+    /// An initial amount as a concentration or, for a gas, a partial pressure (→ p/(RT)).
+    fn initial_amount(
+        &self,
+        value: &Value<'_>,
+        field: &str,
+        phase: Phase,
+        t: f64,
+    ) -> Result<f64, InputError> {
+        let c = match value.get_ref() {
+            DeValue::String(text) => {
+                let q = parse_quantity(text).map_err(|m| self.error(Some(value.span()), field, m))?;
+                if q.dimension.same(Dimension::concentration()) {
+                    q.value
+                } else if q.dimension.same(Dimension::PRESSURE) && phase == Phase::Gas {
+                    q.value / (1000.0 * GAS_CONSTANT * t)
+                } else {
+                    let expected = if phase == Phase::Gas {
+                        "a concentration or a partial pressure"
+                    } else {
+                        "a concentration"
+                    };
+                    return Err(self.error(
+                        Some(value.span()),
+                        field,
+                        format!("`{text}` has units of {}, expected {expected}", q.dimension),
+                    ));
+                }
+            }
+            _ => self.number(value, field)?,
+        };
+        if c < 0.0 {
             return Err(self.error(Some(value.span()), field, "a concentration must not be negative"));
         }
-        Ok(x)
+        Ok(c)
+    }
+
+    /// A rate constant of the given total order at temperature t: a number (internal units), a
+    /// string with units, or Arrhenius parameters `{ A = ..., Ea = ..., n = ... }`.
+    fn rate_constant(
+        &self,
+        value: &Value<'_>,
+        field: &str,
+        order: f64,
+        t: f64,
+    ) -> Result<(f64, Option<Arrhenius>), InputError> {
+        let expected = Dimension::rate_constant(order);
+        let units_error = |text: &str, given: Dimension| {
+            self.error(
+                Some(value.span()),
+                field,
+                format!(
+                    "`{text}` has units of {given}, but a step of order {} needs {} (mol/L and s: {})",
+                    trim_order(order),
+                    expected,
+                    crate::audit::rate_constant_units(order)
+                ),
+            )
+        };
+        let (k, arrhenius) = match value.get_ref() {
+            DeValue::String(text) => {
+                let q = parse_quantity(text).map_err(|m| self.error(Some(value.span()), field, m))?;
+                if !q.dimension.same(expected) {
+                    return Err(units_error(text, q.dimension));
+                }
+                (q.value, None)
+            }
+            DeValue::Table(parts) => {
+                for (key, _) in parts.iter() {
+                    if !["A", "Ea", "n"].contains(&key.get_ref().as_ref()) {
+                        return Err(self.error(
+                            Some(key.span()),
+                            &format!("{field}.{}", key.get_ref()),
+                            "unknown key; Arrhenius parameters are A, Ea and n",
+                        ));
+                    }
+                }
+                let (Some(a), Some(ea)) = (parts.get("A"), parts.get("Ea")) else {
+                    return Err(self.error(
+                        Some(value.span()),
+                        field,
+                        "Arrhenius parameters need A and Ea (n is optional)",
+                    ));
+                };
+                let a_field = format!("{field}.A");
+                let a = match a.get_ref() {
+                    DeValue::String(text) => {
+                        let q = parse_quantity(text).map_err(|m| self.error(Some(a.span()), &a_field, m))?;
+                        if !q.dimension.same(expected) {
+                            return Err(units_error(text, q.dimension));
+                        }
+                        q.value
+                    }
+                    _ => self.number(a, &a_field)?,
+                };
+                let ea = self.quantity(ea, &format!("{field}.Ea"), Dimension::molar_energy(), 1000.0)?;
+                let n = match parts.get("n") {
+                    Some(v) => self.number(v, &format!("{field}.n"))?,
+                    None => 0.0,
+                };
+                let arrhenius = Arrhenius { a, ea, n };
+                (arrhenius.at(t), Some(arrhenius))
+            }
+            _ => (self.number(value, field)?, None),
+        };
+        if k < 0.0 {
+            return Err(self.error(Some(value.span()), field, "must not be negative"));
+        }
+        if !k.is_finite() {
+            return Err(self.error(
+                Some(value.span()),
+                field,
+                "evaluates to a number too large to use",
+            ));
+        }
+        Ok((k, arrhenius))
+    }
+
+    /// K (Kc, concentration-based) or Kp, in any of its forms, evaluated as Kc at temperature t.
+    fn equilibrium_constant(
+        &self,
+        value: &Value<'_>,
+        field: &str,
+        is_kp: bool,
+        delta_n: f64,
+        delta_n_gas: f64,
+        t: f64,
+    ) -> Result<EquilibriumConstant, InputError> {
+        let name = if is_kp { "Kp" } else { "K" };
+        // The "native" value: Kc for K, the standard (1 bar) Kp° for Kp.
+        let native = |v: &Value<'_>, sub: &str| -> Result<f64, InputError> {
+            let x = match v.get_ref() {
+                DeValue::String(text) => {
+                    let q = parse_quantity(text).map_err(|m| self.error(Some(v.span()), sub, m))?;
+                    let expected = if is_kp {
+                        Dimension::PRESSURE.power(delta_n_gas)
+                    } else {
+                        Dimension::concentration().power(delta_n)
+                    };
+                    if !q.dimension.same(expected) {
+                        return Err(self.error(
+                            Some(v.span()),
+                            sub,
+                            format!(
+                                "`{text}` has units of {}, expected {expected} for this step",
+                                q.dimension
+                            ),
+                        ));
+                    }
+                    if is_kp {
+                        q.value / STANDARD_PRESSURE.powf(delta_n_gas)
+                    } else {
+                        q.value
+                    }
+                }
+                _ => self.number(v, sub)?,
+            };
+            if x <= 0.0 {
+                return Err(self.error(Some(v.span()), sub, "must be positive"));
+            }
+            Ok(x)
+        };
+        let to_kc = |native: f64| {
+            if is_kp {
+                kc_from_standard(native, delta_n_gas, t)
+            } else {
+                native
+            }
+        };
+        let DeValue::Table(parts) = value.get_ref() else {
+            let x = native(value, field)?;
+            return Ok(EquilibriumConstant {
+                kc: to_kc(x),
+                source: if is_kp {
+                    format!("Kp = {x} (standard, 1 bar)")
+                } else {
+                    format!("K = {x}")
+                },
+                enthalpy: None,
+            });
+        };
+        for (key, _) in parts.iter() {
+            if !["value", "at", "dH", "dS"].contains(&key.get_ref().as_ref()) {
+                return Err(self.error(
+                    Some(key.span()),
+                    &format!("{field}.{}", key.get_ref()),
+                    format!("unknown key; {name} takes value (with at and dH) or dH and dS"),
+                ));
+            }
+        }
+        let energy = |key: &str| {
+            parts
+                .get(key)
+                .map(|v| self.energy_kj(v, &format!("{field}.{key}")))
+                .transpose()
+        };
+        let dh = energy("dH")?;
+        let at = parts
+            .get("at")
+            .map(|v| self.quantity(v, &format!("{field}.at"), Dimension::TEMPERATURE, 1.0))
+            .transpose()?;
+        let ds = parts
+            .get("dS")
+            .map(|v| {
+                self.quantity(
+                    v,
+                    &format!("{field}.dS"),
+                    Dimension::molar_energy().times(Dimension::TEMPERATURE.power(-1.0)),
+                    1.0,
+                )
+            })
+            .transpose()?;
+        let rt = GAS_CONSTANT * t;
+        match (parts.get("value"), dh, ds) {
+            (Some(v), dh, None) => {
+                let x = native(v, &format!("{field}.value"))?;
+                let (x_t, source) =
+                    match (at, dh) {
+                        (Some(at), Some(dh)) => (
+                            x * (-dh * 1000.0 / GAS_CONSTANT * (1.0 / t - 1.0 / at)).exp(),
+                            format!("{name} = {x} at {at} K, van 't Hoff with dH = {dh} kJ/mol"),
+                        ),
+                        (Some(at), None) if (at - t).abs() > 1e-9 => return Err(self.error(
+                            Some(value.span()),
+                            field,
+                            format!(
+                                "{name} is given at {at} K but the run is at {t} K: add dH to carry it over"
+                            ),
+                        )),
+                        _ => (x, format!("{name} = {x}")),
+                    };
+                Ok(EquilibriumConstant {
+                    kc: to_kc(x_t),
+                    source,
+                    enthalpy: dh,
+                })
+            }
+            (None, Some(dh), Some(ds)) => {
+                let k0 = (-(dh * 1000.0 - t * ds) / rt).exp();
+                Ok(EquilibriumConstant {
+                    kc: kc_from_standard(k0, delta_n_gas, t),
+                    source: format!("{name} from dH = {dh} kJ/mol, dS = {ds} J/(mol K)"),
+                    enthalpy: Some(dh),
+                })
+            }
+            _ => Err(self.error(
+                Some(value.span()),
+                field,
+                format!("{name} as a table takes value (optionally with at and dH), or dH and dS"),
+            )),
+        }
     }
 
     /// A finite number (TOML integer or float).
@@ -537,6 +937,22 @@ impl<'a> Reader<'a> {
                 format!("expected a string, found {}", other.type_str()),
             )),
         }
+    }
+}
+
+/// An equilibrium constant as read: Kc at the run temperature, how it was given, and the
+/// enthalpy of reaction when the data include it.
+struct EquilibriumConstant {
+    kc: f64,
+    source: String,
+    enthalpy: Option<f64>,
+}
+
+fn trim_order(order: f64) -> String {
+    if (order - order.round()).abs() < 1e-12 {
+        format!("{}", order.round() as i64)
+    } else {
+        format!("{order}")
     }
 }
 
