@@ -9,8 +9,9 @@ use crate::equilibrium;
 use crate::error::Error;
 use crate::network::Network;
 use crate::report;
-use crate::run::{self, RunSettings};
+use crate::run::{self, OutputUnits, RunSettings};
 use crate::stoich::Stoichiometry;
+use crate::units::{parse_quantity, ConcentrationUnit, Dimension, TimeUnit};
 
 #[derive(Debug, Parser)]
 #[command(
@@ -55,6 +56,9 @@ pub struct CheckArgs {
     /// Replace FILE if it exists.
     #[arg(long)]
     pub force: bool,
+    /// Temperature, overriding the file's (K, or with units such as "60 degC").
+    #[arg(long, value_name = "T")]
+    pub temperature: Option<String>,
 }
 
 #[derive(Debug, clap::Args)]
@@ -64,6 +68,9 @@ pub struct EquilibriumArgs {
     /// Print a JSON object instead of the table.
     #[arg(long)]
     pub json: bool,
+    /// Temperature, overriding the file's (K, or with units such as "60 degC").
+    #[arg(long, value_name = "T")]
+    pub temperature: Option<String>,
 }
 
 #[derive(Debug, clap::Args)]
@@ -85,6 +92,15 @@ pub struct RunArgs {
     /// Absolute integration tolerance in mol/L (species may set their own `atol` in the file).
     #[arg(long, default_value_t = crate::integrate::DEFAULT_ATOL)]
     pub atol: f64,
+    /// Run temperature, overriding the file's (K, or with units such as "60 degC").
+    #[arg(long, value_name = "T")]
+    pub temperature: Option<String>,
+    /// Time unit of tables and charts.
+    #[arg(long, value_enum, default_value_t = TimeUnit::S)]
+    pub time_unit: TimeUnit,
+    /// Concentration unit of tables and charts.
+    #[arg(long, value_enum, default_value_t = ConcentrationUnit::MolPerL)]
+    pub conc_unit: ConcentrationUnit,
     /// Replace results of an earlier run in the output folder.
     #[arg(long)]
     pub force: bool,
@@ -109,6 +125,26 @@ pub fn execute(cli: Cli) -> Result<Outcome, Error> {
         Command::Run(args) => run_command(args).map(Outcome::from),
         Command::Equilibrium(args) => equilibrium_command(args).map(Outcome::from),
         Command::Check(args) => check_command(args),
+    }
+}
+
+/// A `--temperature` value: a number in K or a quantity with temperature units.
+fn temperature(text: &Option<String>) -> Result<Option<f64>, Error> {
+    let Some(text) = text else { return Ok(None) };
+    let bad = |message: String| Error::Option {
+        option: "--temperature".into(),
+        message,
+    };
+    let q = parse_quantity(text).map_err(bad)?;
+    let t = if q.dimension.same(Dimension::NONE) || q.dimension.same(Dimension::TEMPERATURE) {
+        q.value
+    } else {
+        return Err(bad(format!("`{text}` is not a temperature")));
+    };
+    if t > 0.0 {
+        Ok(Some(t))
+    } else {
+        Err(bad(format!("`{text}` is not above 0 K")))
     }
 }
 
@@ -137,7 +173,7 @@ fn run_command(args: RunArgs) -> Result<String, Error> {
     }
     tolerances.sort_by(|a, b| b.total_cmp(a));
     tolerances.dedup();
-    let network = Network::from_file(&args.case)?;
+    let network = Network::from_file_at(&args.case, temperature(&args.temperature)?)?;
     let out = args
         .out
         .unwrap_or_else(|| PathBuf::from("output").join(network.case_name()));
@@ -161,6 +197,10 @@ fn run_command(args: RunArgs) -> Result<String, Error> {
         rtol,
         atol: args.atol,
         force_dense: None,
+        units: OutputUnits {
+            time: args.time_unit,
+            concentration: args.conc_unit,
+        },
     };
     let result = run::run(&network, &settings)?;
     let files = report::render_run(&result)?;
@@ -169,7 +209,7 @@ fn run_command(args: RunArgs) -> Result<String, Error> {
 }
 
 fn equilibrium_command(args: EquilibriumArgs) -> Result<String, Error> {
-    let network = Network::from_file(&args.case)?;
+    let network = Network::from_file_at(&args.case, temperature(&args.temperature)?)?;
     let stoich = Stoichiometry::new(&network);
     let solved =
         equilibrium::solve(&network, &stoich).map_err(|why| Error::NoEquilibrium(why.to_string()))?;
@@ -186,7 +226,7 @@ fn check_command(args: CheckArgs) -> Result<Outcome, Error> {
             message: "must be a positive energy in kJ/mol".into(),
         });
     }
-    let network = Network::from_file(&args.case)?;
+    let network = Network::from_file_at(&args.case, temperature(&args.temperature)?)?;
     let found = audit::audit(&network, args.tol_kj, args.adjust);
     let mut text = if args.json {
         serde_json::to_string_pretty(&found).unwrap_or_default() + "\n"

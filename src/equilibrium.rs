@@ -90,11 +90,32 @@ pub fn solve(network: &Network, stoich: &Stoichiometry) -> Result<Equilibrium, N
     solve_from(network, stoich, &network.initial_state())
 }
 
-/// Solves the equilibrium reached from the state `c0`.
+/// Solves the equilibrium reached from the state `c0`. A pure solid or liquid that would be
+/// needed in a negative amount is used up: it is set to zero, the steps it takes part in drop out
+/// of the equilibrium conditions, and the rest is solved again (one phase at a time).
 pub fn solve_from(
     network: &Network,
     stoich: &Stoichiometry,
     c0: &[f64],
+) -> Result<Equilibrium, NoEquilibrium> {
+    let mut absent = vec![false; network.n_species()];
+    loop {
+        match solve_with(network, stoich, c0, &absent) {
+            Err(NoEquilibrium::PurePhaseUsedUp(name)) => match network.species_index(&name) {
+                Some(i) if !absent[i] => absent[i] = true,
+                _ => return Err(NoEquilibrium::PurePhaseUsedUp(name)),
+            },
+            other => return other,
+        }
+    }
+}
+
+/// Solves with the pure phases marked in `absent` held at zero.
+fn solve_with(
+    network: &Network,
+    stoich: &Stoichiometry,
+    c0: &[f64],
+    absent: &[bool],
 ) -> Result<Equilibrium, NoEquilibrium> {
     let n = network.n_species();
     let dissolved = |i: usize| network.species[i].in_rate_laws();
@@ -107,8 +128,12 @@ pub fn solve_from(
     if !one_way.is_empty() {
         return Err(NoEquilibrium::OneWaySteps(one_way));
     }
+    let uses_absent = |j: usize| {
+        let r = &network.reactions[j];
+        r.reactants.iter().chain(&r.products).any(|e| absent[e.0])
+    };
     let active: Vec<usize> = (0..network.reactions.len())
-        .filter(|&j| network.reactions[j].kf > 0.0)
+        .filter(|&j| network.reactions[j].kf > 0.0 && !uses_absent(j))
         .collect();
     for &j in &active {
         let r = &network.reactions[j];
@@ -131,7 +156,7 @@ pub fn solve_from(
     // Conservation totals, and the laws of the dissolved species alone (pure phases eliminated).
     let laws = &stoich.conservation;
     let totals: Vec<f64> = laws.iter().map(|l| l.total(c0)).collect();
-    let pure: Vec<usize> = (0..n).filter(|&i| !dissolved(i)).collect();
+    let pure: Vec<usize> = (0..n).filter(|&i| !dissolved(i) && !absent[i]).collect();
     let mut eliminate = Echelon::new(laws.len());
     for &p in &pure {
         let row: Vec<(usize, f64)> = laws
@@ -254,7 +279,7 @@ pub fn solve_from(
                 .coefficients
                 .iter()
                 .copied()
-                .filter(|e| !dissolved(e.0))
+                .filter(|e| !dissolved(e.0) && !absent[e.0])
                 .collect();
             amounts.insert(&row, total - rest);
         }

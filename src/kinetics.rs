@@ -5,20 +5,65 @@
 //! list of contributions, so evaluation touches only what is there.
 
 use crate::linalg::Pattern;
-use crate::network::Network;
+use crate::network::{Network, Phase};
 use crate::stoich::net_change;
 
 /// Concentrations below this are treated as this when a fractional order (< 1) would make the
 /// derivative infinite at zero (mol/L).
 const FRACTIONAL_ORDER_FLOOR: f64 = 1e-20;
 
-/// The rate law of one step: rate = kf Π c^a − kr Π c^b.
+/// Amount (mol/L) below which a pure solid or liquid counts as used up: the steps that consume
+/// it are switched off by the factor n/(n + PRESENCE_SCALE), 1 to within 1e-12 relative for any
+/// amount worth reporting and 0 when the phase is gone, so amounts never go negative.
+const PRESENCE_SCALE: f64 = 1e-12;
+
+/// One factor of a rate: a concentration to a power, or the presence switch of a pure phase that
+/// the direction consumes.
+#[derive(Debug, Clone, Copy)]
+enum Factor {
+    Power { species: usize, order: f64 },
+    Presence { species: usize },
+}
+
+impl Factor {
+    fn species(self) -> usize {
+        match self {
+            Factor::Power { species, .. } | Factor::Presence { species } => species,
+        }
+    }
+
+    fn value(self, c: &[f64]) -> f64 {
+        match self {
+            Factor::Power { species, order } => power(c[species], order, false),
+            Factor::Presence { species } => {
+                let n = c[species].max(0.0);
+                n / (n + PRESENCE_SCALE)
+            }
+        }
+    }
+
+    fn derivative(self, c: &[f64]) -> f64 {
+        match self {
+            Factor::Power { species, order } => order * power(c[species], order - 1.0, true),
+            Factor::Presence { species } => {
+                let n = c[species];
+                if n < 0.0 {
+                    0.0
+                } else {
+                    PRESENCE_SCALE / (n + PRESENCE_SCALE).powi(2)
+                }
+            }
+        }
+    }
+}
+
+/// The rate law of one step: rate = kf Π(forward factors) − kr Π(reverse factors).
 #[derive(Debug, Clone)]
 struct StepLaw {
     kf: f64,
     kr: f64,
-    forward: Vec<(usize, f64)>,
-    reverse: Vec<(usize, f64)>,
+    forward: Vec<Factor>,
+    reverse: Vec<Factor>,
     net: Vec<(usize, f64)>,
 }
 
@@ -50,14 +95,18 @@ impl RateModel {
             .map(|r| StepLaw {
                 kf: r.kf,
                 kr: if r.reversible { r.kr } else { 0.0 },
-                forward: r.forward_orders.clone(),
-                reverse: r.reverse_orders.clone(),
+                forward: factors(&r.forward_orders, &r.reactants, network),
+                reverse: if r.reversible {
+                    factors(&r.reverse_orders, &r.products, network)
+                } else {
+                    Vec::new()
+                },
                 net: net_change(&r.reactants, &r.products),
             })
             .collect();
         let mut entries: Vec<(usize, usize)> = (0..n).map(|i| (i, i)).collect();
         for step in &steps {
-            for &(k, _) in step.forward.iter().chain(&step.reverse) {
+            for k in step.forward.iter().chain(&step.reverse).map(|f| f.species()) {
                 entries.extend(step.net.iter().map(|&(i, _)| (i, k)));
             }
         }
@@ -65,7 +114,7 @@ impl RateModel {
         let mut terms = Vec::new();
         for (j, step) in steps.iter().enumerate() {
             for (reverse, factors) in [(false, &step.forward), (true, &step.reverse)] {
-                for (factor, &(k, _)) in factors.iter().enumerate() {
+                for (factor, k) in factors.iter().map(|f| f.species()).enumerate() {
                     let targets = step
                         .net
                         .iter()
@@ -148,19 +197,36 @@ impl RateModel {
     }
 }
 
-/// Π c_s^a over the factors; with `differentiate = Some(f)`, the derivative with respect to
-/// the concentration of factor f instead.
-fn product(factors: &[(usize, f64)], c: &[f64], differentiate: Option<usize>) -> f64 {
-    let mut p = 1.0;
-    for (f, &(s, a)) in factors.iter().enumerate() {
-        let x = c[s];
-        p *= if Some(f) == differentiate {
-            a * power(x, a - 1.0, true)
-        } else {
-            power(x, a, false)
-        };
-    }
-    p
+/// The factors of one direction: the rate-law orders, then a presence switch for every pure
+/// phase the direction consumes.
+fn factors(orders: &[(usize, f64)], consumed: &[(usize, f64)], network: &Network) -> Vec<Factor> {
+    let mut out: Vec<Factor> = orders
+        .iter()
+        .map(|&(species, order)| Factor::Power { species, order })
+        .collect();
+    out.extend(
+        consumed
+            .iter()
+            .filter(|(i, _)| network.species[*i].phase == Phase::Pure)
+            .map(|&(species, _)| Factor::Presence { species }),
+    );
+    out
+}
+
+/// Π of the factors; with `differentiate = Some(f)`, the derivative with respect to the
+/// concentration behind factor f instead.
+fn product(factors: &[Factor], c: &[f64], differentiate: Option<usize>) -> f64 {
+    factors
+        .iter()
+        .enumerate()
+        .map(|(f, factor)| {
+            if Some(f) == differentiate {
+                factor.derivative(c)
+            } else {
+                factor.value(c)
+            }
+        })
+        .product()
 }
 
 /// x^a. Integer orders keep the sign of a slightly negative x (smooth through zero, as the

@@ -63,6 +63,10 @@ pub fn modes(network: &Network, c_eq: &[f64]) -> Result<Vec<Mode>, String> {
         {
             continue; // a species held at zero: the step is idle at equilibrium
         }
+        let used_up = |e: &(usize, f64)| !network.species[e.0].in_rate_laws() && c_eq[e.0] <= 0.0;
+        if r.reactants.iter().chain(&r.products).any(used_up) {
+            continue; // a pure phase that is used up: the step has stopped
+        }
         let rate: f64 = r.kf
             * r.forward_orders
                 .iter()

@@ -10,6 +10,7 @@ use crate::kinetics::RateModel;
 use crate::network::Network;
 use crate::relaxation::{self, Mode};
 use crate::stoich::Stoichiometry;
+use crate::units::{ConcentrationUnit, TimeUnit};
 
 /// What the user asked for.
 #[derive(Debug, Clone)]
@@ -23,6 +24,24 @@ pub struct RunSettings {
     pub atol: f64,
     /// Force the dense (true) or sparse (false) linear algebra; None chooses by size.
     pub force_dense: Option<bool>,
+    /// Units of time and concentration in tables and charts.
+    pub units: OutputUnits,
+}
+
+/// Units of time and concentration for tables and charts (the JSON summary stays in s and mol/L).
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub struct OutputUnits {
+    pub time: TimeUnit,
+    pub concentration: ConcentrationUnit,
+}
+
+impl Default for OutputUnits {
+    fn default() -> Self {
+        OutputUnits {
+            time: TimeUnit::S,
+            concentration: ConcentrationUnit::MolPerL,
+        }
+    }
 }
 
 impl Default for RunSettings {
@@ -33,6 +52,7 @@ impl Default for RunSettings {
             rtol: integrate::DEFAULT_RTOL,
             atol: integrate::DEFAULT_ATOL,
             force_dense: None,
+            units: OutputUnits::default(),
         }
     }
 }
@@ -73,6 +93,25 @@ pub struct RunResult {
 impl RunResult {
     pub fn species_names(&self) -> Vec<String> {
         self.network.species.iter().map(|s| s.name.clone()).collect()
+    }
+
+    /// Partial pressures of the gases (bar) and their total, in a closed rigid vessel:
+    /// p = c R T with c in mol/m³. None when the network has no gas.
+    pub fn pressures_bar(&self, c: &[f64]) -> Option<(Vec<(String, f64)>, f64)> {
+        if !self.network.has_gas() {
+            return None;
+        }
+        let factor = 1000.0 * crate::constants::GAS_CONSTANT * self.network.temperature / 1e5;
+        let partial: Vec<(String, f64)> = self
+            .network
+            .species
+            .iter()
+            .zip(c)
+            .filter(|(s, _)| s.phase == crate::network::Phase::Gas)
+            .map(|(s, c)| (s.name.clone(), c * factor))
+            .collect();
+        let total = partial.iter().map(|p| p.1).sum();
+        Some((partial, total))
     }
 }
 

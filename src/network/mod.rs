@@ -864,21 +864,22 @@ impl<'a> Reader<'a> {
         match (parts.get("value"), dh, ds) {
             (Some(v), dh, None) => {
                 let x = native(v, &format!("{field}.value"))?;
-                let (x_t, source) =
-                    match (at, dh) {
-                        (Some(at), Some(dh)) => (
-                            x * (-dh * 1000.0 / GAS_CONSTANT * (1.0 / t - 1.0 / at)).exp(),
-                            format!("{name} = {x} at {at} K, van 't Hoff with dH = {dh} kJ/mol"),
-                        ),
-                        (Some(at), None) if (at - t).abs() > 1e-9 => return Err(self.error(
+                let (x_t, source) = match (at, dh) {
+                    (Some(at), Some(dh)) => (
+                        x * (-dh * 1000.0 / GAS_CONSTANT * (1.0 / t - 1.0 / at)).exp(),
+                        format!("{name} = {x} at {at} K, van 't Hoff with dH = {dh} kJ/mol"),
+                    ),
+                    (Some(at), None) if (at - t).abs() > 1e-9 => {
+                        return Err(self.error(
                             Some(value.span()),
                             field,
                             format!(
                                 "{name} is given at {at} K but the run is at {t} K: add dH to carry it over"
                             ),
-                        )),
-                        _ => (x, format!("{name} = {x}")),
-                    };
+                        ))
+                    }
+                    _ => (x, format!("{name} = {x}")),
+                };
                 Ok(EquilibriumConstant {
                     kc: to_kc(x_t),
                     source,

@@ -48,6 +48,8 @@ fn register_font() {
 /// Everything one concentration chart shows, in plotting coordinates.
 struct Plot {
     title: String,
+    time_unit: &'static str,
+    concentration_unit: &'static str,
     log_time: bool,
     x_range: (f64, f64),
     y_range: (f64, f64),
@@ -118,7 +120,15 @@ fn build_plot(result: &RunResult) -> Plot {
     } else {
         0.0
     };
-    let x_of = |t: f64| if log_time { t.max(x_start).log10() } else { t };
+    let units = result.settings.units;
+    let (t_scale, c_scale) = (units.time.seconds(), units.concentration.mol_per_l());
+    let x_of = |t: f64| {
+        if log_time {
+            (t.max(x_start) / t_scale).log10()
+        } else {
+            t / t_scale
+        }
+    };
     let chosen = chosen_species(result);
     let trajectory = &result.solution.trajectory;
     let curves: Vec<Curve> = chosen
@@ -128,9 +138,9 @@ fn build_plot(result: &RunResult) -> Plot {
             points: times
                 .iter()
                 .filter(|&&t| !log_time || t >= x_start)
-                .map(|&t| (x_of(t), trajectory.value_at(i, t)))
+                .map(|&t| (x_of(t), trajectory.value_at(i, t) / c_scale))
                 .collect(),
-            equilibrium: result.equilibrium.as_ref().map(|eq| eq[i]),
+            equilibrium: result.equilibrium.as_ref().map(|eq| eq[i] / c_scale),
         })
         .collect();
     let y_max = curves
@@ -140,6 +150,8 @@ fn build_plot(result: &RunResult) -> Plot {
     let y_max = if y_max > 0.0 { y_max * 1.05 } else { 1.0 };
     Plot {
         title: result.network.title.clone(),
+        time_unit: units.time.symbol(),
+        concentration_unit: units.concentration.symbol(),
         log_time,
         x_range: (x_of(x_start), x_of(end)),
         y_range: (0.0, y_max),
@@ -186,10 +198,11 @@ fn draw<DB: DrawingBackend>(root: &DrawingArea<DB, Shift>, plot: &Plot) -> Resul
     root.fill(&WHITE).map_err(fail)?;
     let (plot_area, legend_area) = root.split_horizontally(SIZE.0 - LEGEND_WIDTH);
     let x_axis = if plot.log_time {
-        "time [s], logarithmic"
+        format!("time [{}], logarithmic", plot.time_unit)
     } else {
-        "time [s]"
+        format!("time [{}]", plot.time_unit)
     };
+    let y_axis = format!("concentration [{}]", plot.concentration_unit);
     let mut chart = ChartBuilder::on(&plot_area)
         .caption(&plot.title, (FONT, 22).into_font())
         .margin(16)
@@ -201,7 +214,7 @@ fn draw<DB: DrawingBackend>(root: &DrawingArea<DB, Shift>, plot: &Plot) -> Resul
     chart
         .configure_mesh()
         .x_desc(x_axis)
-        .y_desc("concentration [mol/L]")
+        .y_desc(y_axis)
         .axis_desc_style((FONT, 16))
         .label_style((FONT, 14))
         .light_line_style(RGBColor(0xee, 0xee, 0xee))

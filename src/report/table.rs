@@ -24,23 +24,34 @@ pub fn output_times(result: &RunResult) -> Vec<f64> {
     times
 }
 
-/// `trajectory.csv`: time in s, then one column per species in mol/L.
+/// `trajectory.csv`: time, then one column per species, in the chosen output units; for
+/// networks with gases, their partial pressures and the total pressure in bar.
 pub fn trajectory_csv(result: &RunResult) -> String {
+    let units = result.settings.units;
+    let (t_scale, c_scale) = (units.time.seconds(), units.concentration.mol_per_l());
     let mut writer = csv::Writer::from_writer(Vec::new());
-    let mut header = vec!["time [s]".to_string()];
+    let mut header = vec![format!("time [{}]", units.time.symbol())];
     header.extend(
         result
             .network
             .species
             .iter()
-            .map(|s| format!("{} [mol/L]", s.name)),
+            .map(|s| format!("{} [{}]", s.name, units.concentration.symbol())),
     );
+    if let Some((partial, _)) = result.pressures_bar(&result.final_state) {
+        header.extend(partial.iter().map(|(name, _)| format!("p({name}) [bar]")));
+        header.push("p_total [bar]".into());
+    }
     // Writing to memory cannot fail.
     let _ = writer.write_record(&header);
     for t in output_times(result) {
         let state = result.solution.trajectory.state_at(t);
-        let mut row = vec![format!("{t:.9e}")];
-        row.extend(state.iter().map(|c| format!("{c:.9e}")));
+        let mut row = vec![format!("{:.9e}", t / t_scale)];
+        row.extend(state.iter().map(|c| format!("{:.9e}", c / c_scale)));
+        if let Some((partial, total)) = result.pressures_bar(&state) {
+            row.extend(partial.iter().map(|(_, p)| format!("{p:.9e}")));
+            row.push(format!("{total:.9e}"));
+        }
         let _ = writer.write_record(&row);
     }
     String::from_utf8(writer.into_inner().unwrap_or_default()).unwrap_or_default()
