@@ -16,7 +16,7 @@
 use serde::Serialize;
 
 use crate::constants::{rt_kj, BOLTZMANN, PLANCK};
-use crate::network::Network;
+use crate::network::{kc_from_standard, Network, Phase};
 use crate::stoich::{net_change, Echelon};
 
 /// Default tolerance on deviations, kJ/mol (about 4 % in K at 298 K).
@@ -74,6 +74,21 @@ pub struct StepFinding {
     /// Units of Kc implied by the stoichiometry.
     pub k_units: Option<String>,
     pub references: Vec<Reference>,
+    /// Ea,f − Ea,r against the enthalpy of reaction, when both are known.
+    pub activation: Option<ActivationCheck>,
+}
+
+/// Arrhenius parameters against thermochemistry: d ln(kf/kr)/dT must equal d ln Kc/dT, i.e.
+/// Ea,f − Ea,r + (n_f − n_r) R T = ΔH − Δn_gas R T (van 't Hoff; ideal gases).
+#[derive(Debug, Clone, Serialize)]
+pub struct ActivationCheck {
+    /// Ea,f − Ea,r + (n_f − n_r) R T, kJ/mol.
+    pub from_arrhenius_kj_per_mol: f64,
+    /// ΔH − Δn_gas R T, kJ/mol.
+    pub from_enthalpy_kj_per_mol: f64,
+    pub enthalpy_source: String,
+    pub deviation_kj_per_mol: f64,
+    pub consistent: bool,
 }
 
 #[derive(Debug, Clone, Serialize)]
@@ -184,6 +199,14 @@ impl Audit {
                 b.step, b.equation
             ));
         }
+        for s in &self.steps {
+            if let Some(a) = s.activation.as_ref().filter(|a| !a.consistent) {
+                lines.push(format!(
+                    "step {} ({}): Ea,f − Ea,r does not match the enthalpy of reaction: off by {:+.2} kJ/mol",
+                    s.step, s.equation, a.deviation_kj_per_mol
+                ));
+            }
+        }
         lines.extend(
             self.warnings
                 .iter()
@@ -206,6 +229,13 @@ pub fn audit(network: &Network, tol_kj: f64, adjust: Adjust) -> Audit {
         let forward_order: f64 = r.forward_orders.iter().map(|e| e.1).sum();
         let reverse_order: f64 = r.reverse_orders.iter().map(|e| e.1).sum();
         let delta_n: f64 = net.iter().filter(|e| dissolved(e.0)).map(|e| e.1).sum();
+        let delta_n_gas: f64 = net
+            .iter()
+            .filter(|e| network.species[e.0].phase == Phase::Gas)
+            .map(|e| e.1)
+            .sum();
+        // K from a Gibbs energy is standard (1 mol/L for solutes, 1 bar for gases): as Kc.
+        let standard_to_kc = |k0: f64| kc_from_standard(k0, delta_n_gas, network.temperature);
         let mut references = Vec::new();
         let ratio = (r.reversible && r.kr > 0.0).then(|| r.kf / r.kr);
         if let Some(ratio) = ratio {
@@ -227,7 +257,11 @@ pub fn audit(network: &Network, tol_kj: f64, adjust: Adjust) -> Audit {
                 push(source.into(), k, r.kr_given);
             }
             if let Some(dg) = r.gibbs {
-                push(format!("dG = {dg} kJ/mol"), (-dg / rt).exp(), true);
+                push(
+                    format!("dG = {dg} kJ/mol"),
+                    standard_to_kc((-dg / rt).exp()),
+                    true,
+                );
             }
             let formation: Option<f64> = net
                 .iter()
@@ -236,7 +270,7 @@ pub fn audit(network: &Network, tol_kj: f64, adjust: Adjust) -> Audit {
             if let Some(dg) = formation {
                 push(
                     format!("dGf of species: dG = {dg:.4} kJ/mol"),
-                    (-dg / rt).exp(),
+                    standard_to_kc((-dg / rt).exp()),
                     true,
                 );
             }
@@ -253,6 +287,7 @@ pub fn audit(network: &Network, tol_kj: f64, adjust: Adjust) -> Audit {
             kr_units: r.reversible.then(|| name(reverse_order)),
             k_units: r.reversible.then(|| concentration_power(delta_n)),
             references,
+            activation: activation_check(network, r, &net, delta_n_gas, tol_kj),
         });
         // Element and charge balance, when every species of the step has a formula.
         let formulas: Option<Vec<(&crate::network::Formula, f64, f64)>> = net
@@ -336,7 +371,11 @@ pub fn audit(network: &Network, tol_kj: f64, adjust: Adjust) -> Audit {
         .flat_map(|s| &s.references)
         .any(|r| r.independent && r.deviation_kj_per_mol.abs() > tol_kj);
     let inconsistent_cycle = cycles.iter().any(|c| c.deviation_kj_per_mol.abs() > tol_kj);
-    let consistent = !inconsistent_k && !inconsistent_cycle && balance.is_empty();
+    let inconsistent_activation = steps
+        .iter()
+        .filter_map(|s| s.activation.as_ref())
+        .any(|a| !a.consistent);
+    let consistent = !inconsistent_k && !inconsistent_cycle && !inconsistent_activation && balance.is_empty();
     let correction =
         (inconsistent_k || inconsistent_cycle).then(|| correct(network, &steps, &cycles, adjust));
     Audit {
@@ -349,6 +388,38 @@ pub fn audit(network: &Network, tol_kj: f64, adjust: Adjust) -> Audit {
         warnings,
         correction,
     }
+}
+
+/// The Arrhenius-versus-enthalpy check of one step, when kf and kr are both Arrhenius and the
+/// enthalpy of reaction is known (from the K or Kp data, or from the species' dHf).
+fn activation_check(
+    network: &Network,
+    r: &crate::network::Reaction,
+    net: &[(usize, f64)],
+    delta_n_gas: f64,
+    tol_kj: f64,
+) -> Option<ActivationCheck> {
+    let (f, b) = (r.kf_arrhenius?, r.kr_arrhenius?);
+    let formation: Option<f64> = net
+        .iter()
+        .map(|&(i, v)| network.species[i].enthalpy_formation.map(|h| v * h))
+        .sum();
+    let (dh, source) = match (r.enthalpy, formation) {
+        (Some(dh), _) => (dh, "dH of the equilibrium-constant data".to_string()),
+        (None, Some(dh)) => (dh, "dHf of species".to_string()),
+        (None, None) => return None,
+    };
+    let rt = rt_kj(network.temperature);
+    let from_arrhenius = (f.ea - b.ea) / 1000.0 + (f.n - b.n) * rt;
+    let from_enthalpy = dh - delta_n_gas * rt;
+    let deviation = from_arrhenius - from_enthalpy;
+    Some(ActivationCheck {
+        from_arrhenius_kj_per_mol: from_arrhenius,
+        from_enthalpy_kj_per_mol: from_enthalpy,
+        enthalpy_source: source,
+        deviation_kj_per_mol: deviation,
+        consistent: deviation.abs() <= tol_kj,
+    })
 }
 
 /// Steps that take part in detailed balance: reversible with both constants positive.

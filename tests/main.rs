@@ -5,6 +5,7 @@ mod util;
 mod analytic;
 mod audit;
 mod cli;
+mod conditions;
 mod docs;
 mod equilibrium;
 mod explicit_reference;

@@ -75,6 +75,26 @@ pub fn render(network: &Network, audit: &Audit) -> String {
             r.deviation_kj_per_mol
         );
     }
+    let activation: Vec<_> = audit
+        .steps
+        .iter()
+        .filter_map(|s| s.activation.as_ref().map(|a| (s, a)))
+        .collect();
+    if !activation.is_empty() {
+        let _ = writeln!(out, "\n  Arrhenius parameters against the enthalpy of reaction (Ea,f − Ea,r + Δn_Arrhenius RT vs ΔH − Δn_gas RT):");
+        for (s, a) in activation {
+            let _ = writeln!(
+                out,
+                "    step {:>3}: {:.3} vs {:.3} kJ/mol ({}); {:+.3} kJ/mol  {}",
+                s.step,
+                a.from_arrhenius_kj_per_mol,
+                a.from_enthalpy_kj_per_mol,
+                a.enthalpy_source,
+                a.deviation_kj_per_mol,
+                if a.consistent { "ok" } else { "INCONSISTENT" }
+            );
+        }
+    }
     let _ = writeln!(out, "\n  detailed balance around cycles (Wegscheider condition):");
     if audit.cycles.is_empty() {
         let _ = writeln!(out, "    no cycles among the reversible steps");

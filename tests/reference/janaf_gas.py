@@ -77,7 +77,8 @@ def main():
     for equation, nu in REACTIONS.items():
         dh0 = sum(v * formation(s)[0] for s, v in nu.items())
         ds0 = sum(v * formation(s)[1] for s, v in nu.items())
-        entry = {"dH_kJ_per_mol": dh0 / 1000.0, "dS_J_per_mol_K": ds0, "K": {}}
+        dcp298 = sum(v * cp_on(s, [298.15])[0] for s, v in nu.items())
+        entry = {"dH_kJ_per_mol": dh0 / 1000.0, "dS_J_per_mol_K": ds0, "dCp_298_J_per_mol_K": dcp298, "K": {}}
         for t in TEMPERATURES:
             grid = [298.15] + [x for x in range(300, int(t) + 1, 100)]
             if grid[-1] != t:
