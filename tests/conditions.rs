@@ -66,7 +66,7 @@ fn gas_phase_k_at_two_temperatures_matches_the_janaf_tables() {
     let table: serde_json::Value = serde_json::from_str(include_str!("reference/janaf_gas.json")).unwrap();
     let species_of = |equation: &str| -> Vec<String> {
         equation
-            .split(|c| c == '+' || c == '<' || c == '=' || c == '>')
+            .split(['+', '<', '=', '>'])
             .map(|t| {
                 t.trim()
                     .trim_start_matches(|c: char| c.is_ascii_digit() || c == ' ')
