@@ -50,6 +50,8 @@ impl Adjust {
 
 #[derive(Debug, Clone, Serialize)]
 pub struct Audit {
+    pub model: &'static str,
+    pub cautions: Vec<String>,
     pub temperature_k: f64,
     pub tolerance_kj_per_mol: f64,
     pub consistent: bool,
@@ -379,6 +381,8 @@ pub fn audit(network: &Network, tol_kj: f64, adjust: Adjust) -> Audit {
     let correction =
         (inconsistent_k || inconsistent_cycle).then(|| correct(network, &steps, &cycles, adjust));
     Audit {
+        model: "isothermal, ideal mass-action kinetics; equilibrium constants at the stated temperature",
+        cautions: crate::CAUTIONS.iter().map(|c| c.to_string()).collect(),
         temperature_k: network.temperature,
         tolerance_kj_per_mol: tol_kj,
         consistent,

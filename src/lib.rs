@@ -19,3 +19,11 @@ pub mod report;
 pub mod run;
 pub mod stoich;
 pub mod units;
+
+/// The cautions every report carries.
+pub const CAUTIONS: [&str; 4] = [
+    "Isothermal, ideal model: constant temperature and volume, ideal mass-action kinetics, perfectly mixed batch.",
+    "No heat release, runaway, mixing or mass-transfer limits are modelled.",
+    "Verify results against plant and laboratory data before use.",
+    "Defer to process-safety review, local codes and licensed engineering practice for plant decisions.",
+];

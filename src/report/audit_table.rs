@@ -171,6 +171,10 @@ pub fn render(network: &Network, audit: &Audit) -> String {
             let _ = writeln!(out, "    note: {conflict}");
         }
     }
+    let _ = writeln!(out, "\n  Model: {}. Cautions:", audit.model);
+    for c in &audit.cautions {
+        let _ = writeln!(out, "    - {c}");
+    }
     let _ = writeln!(
         out,
         "\n  verdict: {}",

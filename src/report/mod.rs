@@ -16,13 +16,7 @@ use std::path::{Path, PathBuf};
 use crate::error::Error;
 use crate::run::RunResult;
 
-/// The cautions every report carries.
-pub const CAUTIONS: [&str; 4] = [
-    "Isothermal, ideal model: constant temperature and volume, ideal mass-action kinetics, perfectly mixed batch.",
-    "No heat release, runaway, mixing or mass-transfer limits are modelled.",
-    "Verify results against plant and laboratory data before use.",
-    "Defer to process-safety review, local codes and licensed engineering practice for plant decisions.",
-];
+pub use crate::CAUTIONS;
 
 /// Names of the files a run writes.
 pub const RUN_FILES: [&str; 4] = [

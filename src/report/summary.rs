@@ -46,6 +46,10 @@ pub struct Summary {
     pub relaxation_estimates: Vec<Estimate>,
     /// Per species, the fraction of its total change completed at `final_time`.
     pub progress_at_final_time: Map<String, serde_json::Value>,
+    /// Partial pressures of the gases at `final_time`, bar (closed rigid vessel), when there are gases.
+    pub final_partial_pressures_bar: Option<Map<String, serde_json::Value>>,
+    pub final_total_pressure_bar: Option<f64>,
+    pub initial_total_pressure_bar: Option<f64>,
     /// The rate-constant audit in brief (`kinequil check` gives the full report).
     pub audit: AuditBrief,
     pub conservation: Conservation,
@@ -210,6 +214,16 @@ impl Summary {
                 .zip(&result.progress)
                 .map(|(n, p)| (n.clone(), serde_json::json!(p)))
                 .collect(),
+            final_partial_pressures_bar: result.pressures_bar(&result.final_state).map(|(partial, _)| {
+                partial
+                    .into_iter()
+                    .map(|(n, p)| (n, serde_json::json!(p)))
+                    .collect()
+            }),
+            final_total_pressure_bar: result.pressures_bar(&result.final_state).map(|(_, total)| total),
+            initial_total_pressure_bar: result
+                .pressures_bar(&trajectory.states[0])
+                .map(|(_, total)| total),
             audit: AuditBrief {
                 consistent: result.audit.consistent,
                 tolerance_kj_per_mol: result.audit.tolerance_kj_per_mol,

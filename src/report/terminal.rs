@@ -96,6 +96,22 @@ pub fn render(result: &RunResult, files: &[PathBuf]) -> String {
             );
         }
     }
+    if let (Some((_, p0)), Some((partial, p1))) = (
+        result.pressures_bar(&result.solution.trajectory.states[0]),
+        result.pressures_bar(&result.final_state),
+    ) {
+        let parts: Vec<String> = partial
+            .iter()
+            .map(|(n, p)| format!("{n} {}", with_digits(*p, 5)))
+            .collect();
+        let _ = writeln!(
+            out,
+            "  gas (closed rigid vessel): total pressure {} -> {} bar; partial pressures at the end: {} bar",
+            with_digits(p0, 5),
+            with_digits(p1, 5),
+            parts.join(", ")
+        );
+    }
     let findings = result.audit.brief();
     if findings.is_empty() {
         let _ = writeln!(out, "  audit of the rate constants: no findings");
