@@ -28,17 +28,11 @@ pub struct Settling {
     pub limiting_species: Option<String>,
 }
 
-/// For each tolerance, the earliest time after which every species stays within the band.
-/// `equilibrium` is the reference composition; `noise` the integration tolerance per species.
-pub fn time_to_equilibrium(
-    trajectory: &Trajectory,
-    equilibrium: &[f64],
-    noise: &[f64],
-    tolerances: &[f64],
-    names: &[String],
-) -> Vec<Settling> {
-    let n = equilibrium.len();
-    let scales: Vec<Option<f64>> = (0..n)
+/// The size of each species' change that tolerances are fractions of (see the module comment):
+/// the total change, or the largest excursion when the total change is noise, or None for a
+/// species that never moves beyond noise.
+pub fn change_scales(trajectory: &Trajectory, equilibrium: &[f64], noise: &[f64]) -> Vec<Option<f64>> {
+    (0..equilibrium.len())
         .map(|i| {
             let floor = NOISE_MULTIPLE * noise[i];
             let total = (equilibrium[i] - trajectory.states[0][i]).abs();
@@ -54,7 +48,19 @@ pub fn time_to_equilibrium(
                 None
             }
         })
-        .collect();
+        .collect()
+}
+
+/// For each tolerance, the earliest time after which every species stays within the band.
+/// `equilibrium` is the reference composition; `noise` the integration tolerance per species.
+pub fn time_to_equilibrium(
+    trajectory: &Trajectory,
+    equilibrium: &[f64],
+    noise: &[f64],
+    tolerances: &[f64],
+    names: &[String],
+) -> Vec<Settling> {
+    let scales = change_scales(trajectory, equilibrium, noise);
     tolerances
         .iter()
         .map(|&tol| {

@@ -9,6 +9,7 @@ use crate::equilibrium;
 use crate::error::Error;
 use crate::network::Network;
 use crate::report;
+use crate::report::chart::{ChartOptions, TimeAxis};
 use crate::run::{self, OutputUnits, RunSettings};
 use crate::stoich::Stoichiometry;
 use crate::units::{parse_quantity, ConcentrationUnit, Dimension, TimeUnit};
@@ -101,6 +102,19 @@ pub struct RunArgs {
     /// Concentration unit of tables and charts.
     #[arg(long, value_enum, default_value_t = ConcentrationUnit::MolPerL)]
     pub conc_unit: ConcentrationUnit,
+    /// Also tabulate the state at these times (comma-separated; plain numbers are in the
+    /// --time-unit, or give units such as "1.5 h") in table_at_times.csv.
+    #[arg(long, value_name = "LIST")]
+    pub times: Option<String>,
+    /// Also tabulate the state every this long (e.g. "30 min") in table_at_times.csv.
+    #[arg(long, value_name = "INTERVAL")]
+    pub every: Option<String>,
+    /// Species to plot (comma-separated) instead of those that change most.
+    #[arg(long, value_name = "A,B,C")]
+    pub species: Option<String>,
+    /// Time axis of the charts.
+    #[arg(long, value_enum, default_value_t = TimeAxis::Auto)]
+    pub time_axis: TimeAxis,
     /// Replace results of an earlier run in the output folder.
     #[arg(long)]
     pub force: bool,
@@ -146,6 +160,49 @@ fn temperature(text: &Option<String>) -> Result<Option<f64>, Error> {
     } else {
         Err(bad(format!("`{text}` is not above 0 K")))
     }
+}
+
+/// A time: a plain number in `unit`, or a quantity with time units; never negative.
+fn duration(option: &str, text: &str, unit: TimeUnit) -> Result<f64, Error> {
+    let bad = |message: String| Error::Option {
+        option: option.into(),
+        message,
+    };
+    let q = parse_quantity(text.trim()).map_err(bad)?;
+    let seconds = if q.dimension.same(Dimension::NONE) {
+        q.value * unit.seconds()
+    } else if q.dimension.same(Dimension::TIME) {
+        q.value
+    } else {
+        return Err(bad(format!("`{text}` is not a time")));
+    };
+    if seconds < 0.0 {
+        return Err(bad(format!("`{text}` is negative")));
+    }
+    Ok(seconds)
+}
+
+/// Species indices from a comma-separated list of names.
+fn species_list(network: &Network, list: &str) -> Result<Vec<usize>, Error> {
+    let mut chosen = Vec::new();
+    for name in list.split(',').map(str::trim).filter(|n| !n.is_empty()) {
+        let Some(i) = network.species_index(name) else {
+            return Err(Error::Option {
+                option: "--species".into(),
+                message: format!("no species `{name}` in the network"),
+            });
+        };
+        if !chosen.contains(&i) {
+            chosen.push(i);
+        }
+    }
+    if chosen.is_empty() {
+        return Err(Error::Option {
+            option: "--species".into(),
+            message: "name at least one species".into(),
+        });
+    }
+    Ok(chosen)
 }
 
 fn positive_fraction(option: &str, x: f64) -> Result<f64, Error> {
@@ -200,6 +257,33 @@ fn run_command(args: RunArgs) -> Result<String, Error> {
         units: OutputUnits {
             time: args.time_unit,
             concentration: args.conc_unit,
+        },
+        chart: ChartOptions {
+            time_axis: args.time_axis,
+            species: match &args.species {
+                Some(list) => Some(species_list(&network, list)?),
+                None => None,
+            },
+        },
+        output_times: match &args.times {
+            Some(list) => list
+                .split(',')
+                .map(|t| duration("--times", t, args.time_unit))
+                .collect::<Result<Vec<f64>, Error>>()?,
+            None => Vec::new(),
+        },
+        output_every: match &args.every {
+            Some(text) => {
+                let every = duration("--every", text, args.time_unit)?;
+                if every <= 0.0 {
+                    return Err(Error::Option {
+                        option: "--every".into(),
+                        message: "must be a positive interval".into(),
+                    });
+                }
+                Some(every)
+            }
+            None => None,
         },
     };
     let result = run::run(&network, &settings)?;

@@ -9,6 +9,7 @@ use crate::integrate::{self, Options, Solution};
 use crate::kinetics::RateModel;
 use crate::network::Network;
 use crate::relaxation::{self, Mode};
+use crate::report::chart::ChartOptions;
 use crate::stoich::Stoichiometry;
 use crate::units::{ConcentrationUnit, TimeUnit};
 
@@ -26,6 +27,12 @@ pub struct RunSettings {
     pub force_dense: Option<bool>,
     /// Units of time and concentration in tables and charts.
     pub units: OutputUnits,
+    /// Time axis and species of the charts.
+    pub chart: ChartOptions,
+    /// Extra output times for `table_at_times.csv`, s (empty for none).
+    pub output_times: Vec<f64>,
+    /// Also write `table_at_times.csv` rows every this many seconds up to the final time.
+    pub output_every: Option<f64>,
 }
 
 /// Units of time and concentration for tables and charts (the JSON summary stays in s and mol/L).
@@ -53,6 +60,9 @@ impl Default for RunSettings {
             atol: integrate::DEFAULT_ATOL,
             force_dense: None,
             units: OutputUnits::default(),
+            chart: ChartOptions::default(),
+            output_times: Vec::new(),
+            output_every: None,
         }
     }
 }
@@ -153,9 +163,7 @@ pub fn run(network: &Network, settings: &RunSettings) -> Result<RunResult, Error
     let names: Vec<String> = network.species.iter().map(|s| s.name.clone()).collect();
     let settling = match &equilibrium {
         Some(eq) => {
-            let noise: Vec<f64> = (0..eq.len())
-                .map(|i| atol[i] + settings.rtol * eq[i].abs())
-                .collect();
+            let noise = noise_levels(eq, &atol, settings.rtol);
             analysis::time_to_equilibrium(trajectory, eq, &noise, &settings.tolerances, &names)
         }
         None => settings
@@ -192,11 +200,21 @@ pub fn run(network: &Network, settings: &RunSettings) -> Result<RunResult, Error
             (change.abs() > 100.0 * noise).then(|| (final_state[i] - c0[i]) / change)
         })
         .collect();
+    let mut settings = settings.clone();
+    if let Some(every) = settings.output_every {
+        // At most 100 000 rows, however small the interval.
+        let count = ((final_time / every).floor() as usize).min(100_000);
+        settings
+            .output_times
+            .extend((0..=count).map(|k| k as f64 * every));
+    }
+    settings.output_times.sort_by(f64::total_cmp);
+    settings.output_times.dedup();
     Ok(RunResult {
         network: network.clone(),
         stoichiometry,
         solution,
-        settings: settings.clone(),
+        settings,
         atol,
         final_time,
         final_state,
@@ -210,6 +228,11 @@ pub fn run(network: &Network, settings: &RunSettings) -> Result<RunResult, Error
         progress,
         audit: audit::audit(network, audit::DEFAULT_TOL_KJ, audit::Adjust::Kr),
     })
+}
+
+/// The integration tolerance of each species at a composition: what counts as noise.
+pub fn noise_levels(c: &[f64], atol: &[f64], rtol: f64) -> Vec<f64> {
+    c.iter().zip(atol).map(|(c, a)| a + rtol * c.abs()).collect()
 }
 
 /// Largest relative difference over species above 1e-9 of the largest concentration, and whether

@@ -11,4 +11,5 @@ mod equilibrium;
 mod explicit_reference;
 mod input_errors;
 mod model;
+mod report;
 mod robertson;

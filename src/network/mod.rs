@@ -122,6 +122,8 @@ pub struct Reaction {
 #[derive(Debug, Clone, PartialEq)]
 pub struct Network {
     pub source: PathBuf,
+    /// The file's text as read, for reports that echo their input.
+    pub source_text: String,
     pub title: String,
     /// Temperature, K. The model is isothermal.
     pub temperature: f64,
@@ -256,6 +258,7 @@ impl<'a> Reader<'a> {
         };
         Ok(Network {
             source: self.file.to_path_buf(),
+            source_text: self.text.to_string(),
             title,
             temperature,
             species,

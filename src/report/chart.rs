@@ -1,70 +1,141 @@
-//! Charts, drawn once per backend (SVG text and PNG pixels) from the same plotting code.
-//!
-//! Text in PNGs is rendered with the DejaVu Sans font compiled into the binary, so charts look
-//! the same on a machine without any font packages.
+//! The charts of a run, as [`Figure`]s: concentrations, approach to equilibrium, forward and
+//! reverse rates, and Q/K per step.
 
-use std::sync::Once;
+use crate::kinetics::RateModel;
+use crate::run::{noise_levels, RunResult};
+use crate::units::TimeUnit;
 
-use plotters::coord::Shift;
-use plotters::prelude::*;
-
-use crate::run::RunResult;
-
+use super::figure::{Band, Figure, Level, Mark, Pattern, Series};
 use super::table::output_times;
+use super::terminal_time;
 
-const SIZE: (u32, u32) = (1000, 620);
-const LEGEND_WIDTH: u32 = 190;
 /// Most curves drawn on one chart; the species with the largest change are kept.
-const MAX_CURVES: usize = 12;
-const FONT: &str = "sans-serif";
+pub const MAX_CURVES: usize = 12;
+/// Most steps on the rate and Q/K charts (two curves each on the rate chart).
+const MAX_STEPS: usize = 6;
+/// Style index of grey reference lines.
+const GREY: usize = 8;
 
-/// Our palette: twelve hues chosen to stay apart on screen and in greyscale print, with
-/// lightness alternating between neighbours.
-const PALETTE: [(u8, u8, u8); 12] = [
-    (0x1b, 0x4f, 0x9c),
-    (0xd9, 0x5f, 0x0e),
-    (0x2a, 0x9d, 0x5c),
-    (0xb5, 0x1f, 0x3a),
-    (0x6a, 0x3d, 0x9a),
-    (0x8c, 0x6d, 0x31),
-    (0x0f, 0x9a, 0xb0),
-    (0xe0, 0xa1, 0x00),
-    (0x55, 0x55, 0x55),
-    (0xd4, 0x4f, 0xa0),
-    (0x1a, 0x1a, 0x1a),
-    (0x7f, 0xa8, 0x1e),
-];
-
-static FONT_ONCE: Once = Once::new();
-
-fn register_font() {
-    FONT_ONCE.call_once(|| {
-        // The font is bundled and valid; a failure here would only lose text, not data.
-        let _ = plotters::style::register_font(FONT, FontStyle::Normal, dejavu::sans::regular());
-        let _ = plotters::style::register_font(FONT, FontStyle::Bold, dejavu::sans::bold());
-    });
+/// How the time axis is chosen.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Default, clap::ValueEnum)]
+pub enum TimeAxis {
+    /// Logarithmic when the approach spans more than three decades, else linear.
+    #[default]
+    Auto,
+    Linear,
+    Log,
 }
 
-/// Everything one concentration chart shows, in plotting coordinates.
-struct Plot {
-    title: String,
-    time_unit: &'static str,
-    concentration_unit: &'static str,
+/// What the user asked of the charts.
+#[derive(Debug, Clone, Default, PartialEq)]
+pub struct ChartOptions {
+    pub time_axis: TimeAxis,
+    /// Species to plot; None picks those that change most.
+    pub species: Option<Vec<usize>>,
+}
+
+/// Every chart of a run: (file stem, figure). The approach chart needs an equilibrium.
+pub fn figures(result: &RunResult) -> Vec<(&'static str, Figure)> {
+    let frame = Frame::new(result);
+    let mut out = vec![("concentrations", concentrations(result, &frame))];
+    if let Some(figure) = approach(result, &frame) {
+        out.push(("approach", figure));
+    }
+    out.push(("rates", rates(result, &frame)));
+    if let Some(figure) = quotients(result, &frame) {
+        out.push(("quotients", figure));
+    }
+    out
+}
+
+/// The time axis and species selection shared by the charts.
+struct Frame {
+    times: Vec<f64>,
     log_time: bool,
-    x_range: (f64, f64),
-    y_range: (f64, f64),
-    curves: Vec<Curve>,
-    hidden: usize,
+    x_start: f64,
+    time_unit: TimeUnit,
+    chosen: Vec<usize>,
+    left_out: Vec<String>,
 }
 
-struct Curve {
-    name: String,
-    points: Vec<(f64, f64)>,
-    equilibrium: Option<f64>,
+impl Frame {
+    fn new(result: &RunResult) -> Frame {
+        let times = output_times(result);
+        let end = result.final_time;
+        let first_positive = times.iter().copied().find(|&t| t > 0.0).unwrap_or(end);
+        let (active_start, active_end) = active_span(result, &times);
+        let spans_decades = active_start > 0.0 && active_end / active_start > 1e3;
+        let log_time = match result.settings.chart.time_axis {
+            TimeAxis::Auto => spans_decades,
+            TimeAxis::Linear => false,
+            TimeAxis::Log => true,
+        };
+        let x_start = if log_time {
+            (if active_start > 0.0 {
+                active_start / 10.0
+            } else {
+                first_positive
+            })
+            .max(first_positive)
+        } else {
+            0.0
+        };
+        let chosen = match &result.settings.chart.species {
+            Some(list) => list.clone(),
+            None => largest_changes(result),
+        };
+        let left_out = (0..result.network.n_species())
+            .filter(|i| !chosen.contains(i))
+            .map(|i| result.network.species[i].name.clone())
+            .collect();
+        Frame {
+            times,
+            log_time,
+            x_start,
+            time_unit: result.settings.units.time,
+            chosen,
+            left_out,
+        }
+    }
+
+    fn x(&self, t: f64) -> f64 {
+        t / self.time_unit.seconds()
+    }
+
+    fn x_label(&self) -> String {
+        format!(
+            "time [{}]{}",
+            self.time_unit.symbol(),
+            if self.log_time { ", logarithmic" } else { "" }
+        )
+    }
+
+    fn plotted_times(&self) -> impl Iterator<Item = f64> + '_ {
+        self.times
+            .iter()
+            .copied()
+            .filter(move |&t| !self.log_time || t >= self.x_start)
+    }
+
+    fn left_out_note(&self) -> Option<String> {
+        (!self.left_out.is_empty()).then(|| {
+            let mut names = self
+                .left_out
+                .iter()
+                .take(8)
+                .cloned()
+                .collect::<Vec<_>>()
+                .join(", ");
+            if self.left_out.len() > 8 {
+                names += ", ...";
+            }
+            format!("{} species not shown: {names}", self.left_out.len())
+        })
+    }
 }
 
-/// Species to draw: those with the largest change over the run, in file order.
-fn chosen_species(result: &RunResult) -> Vec<usize> {
+/// The species with the largest change over the run, at most [`MAX_CURVES`], in file order.
+fn largest_changes(result: &RunResult) -> Vec<usize> {
     let states = &result.solution.trajectory.states;
     let change = |i: usize| {
         let (lo, hi) = states
@@ -81,8 +152,8 @@ fn chosen_species(result: &RunResult) -> Vec<usize> {
     order
 }
 
-/// The span where the action is: from the first time any species has moved 1 % of its range to
-/// the last time any is still more than 1 % of its range from its final value.
+/// From the first time any species has moved 1 % of its range to the last time any is still
+/// more than 1 % of its range from its final value.
 fn active_span(result: &RunResult, times: &[f64]) -> (f64, f64) {
     let trajectory = &result.solution.trajectory;
     let states: Vec<Vec<f64>> = times.iter().map(|&t| trajectory.state_at(t)).collect();
@@ -108,208 +179,314 @@ fn active_span(result: &RunResult, times: &[f64]) -> (f64, f64) {
     (start, end)
 }
 
-fn build_plot(result: &RunResult) -> Plot {
-    let times = output_times(result);
-    let end = result.final_time;
-    let first_positive = times.iter().copied().find(|&t| t > 0.0).unwrap_or(end);
-    // A logarithmic time axis when the approach spans more than three decades.
-    let (active_start, active_end) = active_span(result, &times);
-    let log_time = active_start > 0.0 && active_end / active_start > 1e3;
-    let x_start = if log_time {
-        (active_start / 10.0).max(first_positive)
-    } else {
-        0.0
-    };
-    let units = result.settings.units;
-    let (t_scale, c_scale) = (units.time.seconds(), units.concentration.mol_per_l());
-    let x_of = |t: f64| {
-        if log_time {
-            (t.max(x_start) / t_scale).log10()
-        } else {
-            t / t_scale
-        }
-    };
-    let chosen = chosen_species(result);
+fn concentrations(result: &RunResult, frame: &Frame) -> Figure {
+    let c_unit = result.settings.units.concentration;
+    let c_scale = c_unit.mol_per_l();
     let trajectory = &result.solution.trajectory;
-    let curves: Vec<Curve> = chosen
+    let series: Vec<Series> = frame
+        .chosen
         .iter()
-        .map(|&i| Curve {
+        .enumerate()
+        .map(|(k, &i)| Series {
             name: result.network.species[i].name.clone(),
-            points: times
-                .iter()
-                .filter(|&&t| !log_time || t >= x_start)
-                .map(|&t| (x_of(t), trajectory.value_at(i, t) / c_scale))
+            points: frame
+                .plotted_times()
+                .map(|t| (frame.x(t), trajectory.value_at(i, t) / c_scale))
                 .collect(),
-            equilibrium: result.equilibrium.as_ref().map(|eq| eq[i] / c_scale),
+            style: k,
+            pattern: None,
         })
         .collect();
-    let y_max = curves
-        .iter()
-        .flat_map(|c| c.points.iter().map(|p| p.1).chain(c.equilibrium))
-        .fold(0.0_f64, f64::max);
-    let y_max = if y_max > 0.0 { y_max * 1.05 } else { 1.0 };
-    Plot {
-        title: result.network.title.clone(),
-        time_unit: units.time.symbol(),
-        concentration_unit: units.concentration.symbol(),
-        log_time,
-        x_range: (x_of(x_start), x_of(end)),
-        y_range: (0.0, y_max),
-        curves,
-        hidden: result.network.n_species() - chosen.len(),
-    }
-}
-
-fn colour(k: usize) -> RGBColor {
-    let (r, g, b) = PALETTE[k % PALETTE.len()];
-    RGBColor(r, g, b)
-}
-
-/// Tick label for a time axis position: on a log axis only whole decades are labelled.
-fn time_label(x: f64, log_time: bool) -> String {
-    if !log_time {
-        return trim_number(x);
-    }
-    if (x - x.round()).abs() > 1e-6 {
-        return String::new();
-    }
-    let decade = x.round() as i32;
-    if (-3..=4).contains(&decade) {
-        trim_number(10f64.powi(decade))
-    } else {
-        format!("1e{decade}")
-    }
-}
-
-fn trim_number(x: f64) -> String {
-    if x == 0.0 {
-        return "0".into();
-    }
-    if x.abs() >= 1e5 || x.abs() < 1e-3 {
-        format!("{x:.2e}")
-    } else {
-        let s = format!("{x:.4}");
-        s.trim_end_matches('0').trim_end_matches('.').to_string()
-    }
-}
-
-fn draw<DB: DrawingBackend>(root: &DrawingArea<DB, Shift>, plot: &Plot) -> Result<(), String> {
-    let fail = |e: DrawingAreaErrorKind<DB::ErrorType>| e.to_string();
-    root.fill(&WHITE).map_err(fail)?;
-    let (plot_area, legend_area) = root.split_horizontally(SIZE.0 - LEGEND_WIDTH);
-    let x_axis = if plot.log_time {
-        format!("time [{}], logarithmic", plot.time_unit)
-    } else {
-        format!("time [{}]", plot.time_unit)
-    };
-    let y_axis = format!("concentration [{}]", plot.concentration_unit);
-    let mut chart = ChartBuilder::on(&plot_area)
-        .caption(&plot.title, (FONT, 22).into_font())
-        .margin(16)
-        .x_label_area_size(48)
-        .y_label_area_size(78)
-        .build_cartesian_2d(plot.x_range.0..plot.x_range.1, plot.y_range.0..plot.y_range.1)
-        .map_err(fail)?;
-    let log_time = plot.log_time;
-    chart
-        .configure_mesh()
-        .x_desc(x_axis)
-        .y_desc(y_axis)
-        .axis_desc_style((FONT, 16))
-        .label_style((FONT, 14))
-        .light_line_style(RGBColor(0xee, 0xee, 0xee))
-        .bold_line_style(RGBColor(0xd0, 0xd0, 0xd0))
-        .x_label_formatter(&|x| time_label(*x, log_time))
-        .y_label_formatter(&|y| trim_number(*y))
-        .draw()
-        .map_err(fail)?;
-    for (k, curve) in plot.curves.iter().enumerate() {
-        let style = colour(k).stroke_width(2);
-        chart
-            .draw_series(LineSeries::new(curve.points.iter().copied(), style))
-            .map_err(fail)?;
-        if let Some(eq) = curve.equilibrium {
-            let line = [(plot.x_range.0, eq), (plot.x_range.1, eq)];
-            chart
-                .draw_series(DashedLineSeries::new(
-                    line,
-                    6,
-                    6,
-                    colour(k).mix(0.6).stroke_width(1),
-                ))
-                .map_err(fail)?;
+    let mut levels = Vec::new();
+    let mut bands = Vec::new();
+    let mut notes = Vec::new();
+    let tolerance = result.settings.tolerances.first().copied();
+    if let Some(eq) = &result.equilibrium {
+        let noise = noise_levels(eq, &result.atol, result.settings.rtol);
+        let scales = crate::analysis::change_scales(trajectory, eq, &noise);
+        for (k, &i) in frame.chosen.iter().enumerate() {
+            levels.push(Level {
+                y: eq[i] / c_scale,
+                style: k,
+            });
+            if let (Some(tol), Some(s)) = (tolerance, scales[i]) {
+                bands.push(Band {
+                    low: (eq[i] - tol * s) / c_scale,
+                    high: (eq[i] + tol * s) / c_scale,
+                    style: k,
+                });
+            }
+        }
+        notes.push("thin dashed lines: equilibrium".into());
+        if let Some(tol) = tolerance {
+            notes.push(format!(
+                "shaded: within {} of each species' total change",
+                percent(tol)
+            ));
         }
     }
-    // The legend sits in its own panel, so it never covers data.
-    let text = |size: u32| TextStyle::from((FONT, size).into_font()).color(&BLACK);
-    legend_area
-        .draw(&Text::new("species", (12, 40), text(15)))
-        .map_err(fail)?;
-    for (k, curve) in plot.curves.iter().enumerate() {
-        let y = 70 + 24 * k as i32;
-        legend_area
-            .draw(&PathElement::new(
-                vec![(12, y), (44, y)],
-                colour(k).stroke_width(3),
-            ))
-            .map_err(fail)?;
-        legend_area
-            .draw(&Text::new(curve.name.clone(), (52, y - 8), text(14)))
-            .map_err(fail)?;
+    notes.extend(frame.left_out_note());
+    let y_max = series
+        .iter()
+        .flat_map(|s| s.points.iter().map(|p| p.1))
+        .chain(levels.iter().map(|l| l.y))
+        .fold(0.0_f64, f64::max);
+    Figure {
+        title: short_title(&result.network.title),
+        x_label: frame.x_label(),
+        y_label: format!("concentration [{}]", c_unit.symbol()),
+        x_log: frame.log_time,
+        y_log: false,
+        x_range: (frame.x(frame.x_start), frame.x(result.final_time)),
+        y_range: (0.0, if y_max > 0.0 { 1.05 * y_max } else { 1.0 }),
+        series,
+        levels,
+        bands,
+        marks: Vec::new(),
+        notes,
     }
-    let mut y = 70 + 24 * plot.curves.len() as i32 + 12;
-    if plot.curves.iter().any(|c| c.equilibrium.is_some()) {
-        legend_area
-            .draw(&PathElement::new(
-                vec![(12, y), (20, y)],
-                RGBColor(0x77, 0x77, 0x77).stroke_width(1),
-            ))
-            .map_err(fail)?;
-        legend_area
-            .draw(&PathElement::new(
-                vec![(26, y), (34, y)],
-                RGBColor(0x77, 0x77, 0x77).stroke_width(1),
-            ))
-            .map_err(fail)?;
-        legend_area
-            .draw(&Text::new("equilibrium", (52, y - 8), text(13)))
-            .map_err(fail)?;
-        y += 24;
-    }
-    if plot.hidden > 0 {
-        let note = format!("{} more not shown", plot.hidden);
-        legend_area
-            .draw(&Text::new(note, (12, y), text(13)))
-            .map_err(fail)?;
-    }
-    root.present().map_err(fail)
 }
 
-/// The concentration-vs-time chart as SVG text and PNG bytes.
-pub fn concentrations(result: &RunResult) -> Result<(String, Vec<u8>), String> {
-    register_font();
-    let plot = build_plot(result);
-    let mut svg = String::new();
-    draw(
-        &SVGBackend::with_string(&mut svg, SIZE).into_drawing_area(),
-        &plot,
-    )?;
-    let mut pixels = vec![0u8; (SIZE.0 * SIZE.1 * 3) as usize];
-    draw(
-        &BitMapBackend::with_buffer(&mut pixels, SIZE).into_drawing_area(),
-        &plot,
-    )?;
-    Ok((svg, encode_png(&pixels, SIZE)?))
+/// The case title cut to fit above a chart.
+fn short_title(title: &str) -> String {
+    const WIDTH: usize = 64;
+    if title.chars().count() <= WIDTH {
+        title.to_string()
+    } else {
+        title.chars().take(WIDTH - 1).collect::<String>() + "…"
+    }
 }
 
-fn encode_png(rgb: &[u8], (width, height): (u32, u32)) -> Result<Vec<u8>, String> {
-    let mut bytes = Vec::new();
-    {
-        let mut encoder = png::Encoder::new(&mut bytes, width, height);
-        encoder.set_color(png::ColorType::Rgb);
-        encoder.set_depth(png::BitDepth::Eight);
-        let mut writer = encoder.write_header().map_err(|e| e.to_string())?;
-        writer.write_image_data(rgb).map_err(|e| e.to_string())?;
+fn percent(fraction: f64) -> String {
+    let s = format!("{:.4}", 100.0 * fraction);
+    format!("{} %", s.trim_end_matches('0').trim_end_matches('.'))
+}
+
+/// Fraction of the way still to go, |c − c_eq| / (total change), on a log scale against linear
+/// time: exponential relaxation is a straight line. Times to equilibrium are marked.
+fn approach(result: &RunResult, frame: &Frame) -> Option<Figure> {
+    let eq = result.equilibrium.as_ref()?;
+    let trajectory = &result.solution.trajectory;
+    let noise = noise_levels(eq, &result.atol, result.settings.rtol);
+    let scales = crate::analysis::change_scales(trajectory, eq, &noise);
+    let smallest_tol = result.settings.tolerances.iter().copied().fold(1.0, f64::min);
+    let last_settling = result
+        .settling
+        .iter()
+        .filter_map(|s| s.seconds)
+        .fold(0.0, f64::max);
+    let end = if last_settling > 0.0 {
+        (1.5 * last_settling).min(result.solution.trajectory.end_time())
+    } else {
+        result.final_time
+    };
+    let floor = smallest_tol / 100.0;
+    let times: Vec<f64> = (0..=400).map(|k| end * k as f64 / 400.0).collect();
+    let series: Vec<Series> = frame
+        .chosen
+        .iter()
+        .enumerate()
+        .filter_map(|(k, &i)| {
+            let s = scales[i]?;
+            Some(Series {
+                name: result.network.species[i].name.clone(),
+                points: times
+                    .iter()
+                    .map(|&t| {
+                        (
+                            frame.x(t),
+                            ((trajectory.value_at(i, t) - eq[i]).abs() / s).max(floor),
+                        )
+                    })
+                    .collect(),
+                style: k,
+                pattern: None,
+            })
+        })
+        .collect();
+    let marks = result
+        .settling
+        .iter()
+        .filter_map(|s| {
+            s.seconds.map(|t| Mark {
+                x: frame.x(t),
+                label: format!("{}: {}", percent(s.tolerance), terminal_time(t, frame.time_unit)),
+            })
+        })
+        .collect();
+    let levels = result
+        .settings
+        .tolerances
+        .iter()
+        .map(|&tol| Level { y: tol, style: GREY })
+        .collect();
+    let mut notes = vec!["grey dashed: tolerances and the times every species stays within them".to_string()];
+    notes.extend(frame.left_out_note());
+    Some(Figure {
+        title: "Approach to equilibrium".into(),
+        x_label: format!("time [{}]", frame.time_unit.symbol()),
+        y_label: "fraction of the change still to go".into(),
+        x_log: false,
+        y_log: true,
+        x_range: (0.0, frame.x(end)),
+        y_range: (floor, 2.0),
+        series,
+        levels,
+        bands: Vec::new(),
+        marks,
+        notes,
+    })
+}
+
+/// Forward and reverse rate of each step at the output times, mol/(L s).
+fn step_rates(result: &RunResult, times: &[f64]) -> (Vec<Vec<f64>>, Vec<Vec<f64>>) {
+    let model = RateModel::new(&result.network);
+    let m = model.n_steps();
+    let (mut forward, mut reverse) = (vec![Vec::new(); m], vec![Vec::new(); m]);
+    let (mut f, mut r) = (vec![0.0; m], vec![0.0; m]);
+    for &t in times {
+        model.step_rates(&result.solution.trajectory.state_at(t), &mut f, &mut r);
+        for j in 0..m {
+            forward[j].push(f[j]);
+            reverse[j].push(r[j]);
+        }
     }
-    Ok(bytes)
+    (forward, reverse)
+}
+
+/// The steps to draw: those with the largest forward rate, at most [`MAX_STEPS`].
+fn busiest_steps(forward: &[Vec<f64>], only: impl Fn(usize) -> bool) -> Vec<usize> {
+    let peak = |j: usize| forward[j].iter().copied().fold(0.0, f64::max);
+    let mut order: Vec<usize> = (0..forward.len()).filter(|&j| only(j)).collect();
+    order.sort_by(|&a, &b| peak(b).total_cmp(&peak(a)));
+    order.truncate(MAX_STEPS);
+    order.sort_unstable();
+    order
+}
+
+fn rates(result: &RunResult, frame: &Frame) -> Figure {
+    let times: Vec<f64> = frame.plotted_times().collect();
+    let (forward, reverse) = step_rates(result, &times);
+    let shown = busiest_steps(&forward, |_| true);
+    let mut series = Vec::new();
+    for (k, &j) in shown.iter().enumerate() {
+        let label = step_label(result, j);
+        series.push(Series {
+            name: format!("{label} fwd"),
+            points: times
+                .iter()
+                .zip(&forward[j])
+                .map(|(&t, &v)| (frame.x(t), v))
+                .collect(),
+            style: k,
+            pattern: Some(Pattern::Solid),
+        });
+        if result.network.reactions[j].reversible {
+            series.push(Series {
+                name: format!("{label} rev"),
+                points: times
+                    .iter()
+                    .zip(&reverse[j])
+                    .map(|(&t, &v)| (frame.x(t), v))
+                    .collect(),
+                style: k,
+                pattern: Some(Pattern::Dashed),
+            });
+        }
+    }
+    let positive = series
+        .iter()
+        .flat_map(|s| s.points.iter().map(|p| p.1))
+        .filter(|v| *v > 0.0);
+    let (lo, hi) = positive.fold((f64::INFINITY, 0.0_f64), |(lo, hi), v| (lo.min(v), hi.max(v)));
+    let (lo, hi) = if hi > 0.0 {
+        (lo.max(hi * 1e-12), hi * 2.0)
+    } else {
+        (1e-12, 1.0)
+    };
+    let mut notes = vec![
+        "solid: forward rate; dashed: reverse rate; where they meet the step is at equilibrium".to_string(),
+    ];
+    notes.extend(step_key(result, &shown));
+    Figure {
+        title: "Forward and reverse rates of the steps".into(),
+        x_label: frame.x_label(),
+        y_label: "rate [mol/(L s)]".into(),
+        x_log: frame.log_time,
+        y_log: true,
+        x_range: (frame.x(frame.x_start), frame.x(result.final_time)),
+        y_range: (lo, hi),
+        series,
+        levels: Vec::new(),
+        bands: Vec::new(),
+        marks: Vec::new(),
+        notes,
+    }
+}
+
+/// Q/K of each reversible step over time (the ratio of reverse to forward rate for mass
+/// action); 1 is equilibrium.
+fn quotients(result: &RunResult, frame: &Frame) -> Option<Figure> {
+    let times: Vec<f64> = frame.plotted_times().collect();
+    let (forward, reverse) = step_rates(result, &times);
+    let reversible = |j: usize| {
+        let r = &result.network.reactions[j];
+        r.reversible && r.kr > 0.0
+    };
+    let shown = busiest_steps(&forward, reversible);
+    if shown.is_empty() {
+        return None;
+    }
+    let series: Vec<Series> = shown
+        .iter()
+        .enumerate()
+        .map(|(k, &j)| Series {
+            name: step_label(result, j),
+            points: times
+                .iter()
+                .zip(forward[j].iter().zip(&reverse[j]))
+                .filter(|(_, (f, r))| **f > 0.0 && **r > 0.0)
+                .map(|(&t, (f, r))| (frame.x(t), r / f))
+                .collect(),
+            style: k,
+            pattern: None,
+        })
+        .collect();
+    let (lo, hi) = series
+        .iter()
+        .flat_map(|s| s.points.iter().map(|p| p.1))
+        .fold((1.0_f64, 1.0_f64), |(lo, hi), v| (lo.min(v), hi.max(v)));
+    let mut notes = vec!["Q/K = reverse rate / forward rate; 1 (grey) is equilibrium".to_string()];
+    notes.extend(step_key(result, &shown));
+    Some(Figure {
+        title: "Q/K of each step".into(),
+        x_label: frame.x_label(),
+        y_label: "Q/K".into(),
+        x_log: frame.log_time,
+        y_log: true,
+        x_range: (frame.x(frame.x_start), frame.x(result.final_time)),
+        y_range: ((lo / 2.0).max(1e-8), (hi * 2.0).min(1e8)),
+        series,
+        levels: vec![Level { y: 1.0, style: GREY }],
+        bands: Vec::new(),
+        marks: Vec::new(),
+        notes,
+    })
+}
+
+fn step_label(_result: &RunResult, j: usize) -> String {
+    format!("step {}", j + 1)
+}
+
+/// Legend notes that spell out the numbered steps.
+fn step_key(result: &RunResult, shown: &[usize]) -> Vec<String> {
+    let mut notes: Vec<String> = shown
+        .iter()
+        .map(|&j| format!("step {}: {}", j + 1, result.network.reactions[j].equation))
+        .collect();
+    let hidden = result.network.reactions.len() - shown.len();
+    if hidden > 0 {
+        notes.push(format!("{hidden} slower steps not shown"));
+    }
+    notes
 }

@@ -6,6 +6,8 @@
 pub mod audit_table;
 pub mod chart;
 pub mod equilibrium_table;
+pub mod figure;
+pub mod html;
 pub mod summary;
 pub mod table;
 pub mod terminal;
@@ -18,34 +20,99 @@ use crate::run::RunResult;
 
 pub use crate::CAUTIONS;
 
-/// Names of the files a run writes.
-pub const RUN_FILES: [&str; 4] = [
+/// Names of every file a run may write (the approach and Q/K charts and the table at the
+/// user's times are written only when they apply).
+pub const RUN_FILES: [&str; 14] = [
     "summary.json",
     "trajectory.csv",
+    "rates.csv",
+    "summary_row.csv",
+    "table_at_times.csv",
     "concentrations.svg",
     "concentrations.png",
+    "approach.svg",
+    "approach.png",
+    "rates.svg",
+    "rates.png",
+    "quotients.svg",
+    "quotients.png",
+    "report.html",
 ];
+
+/// SHA-256 of the input text, as lowercase hex.
+pub fn sha256_hex(text: &str) -> String {
+    use sha2::Digest;
+    sha2::Sha256::digest(text.as_bytes())
+        .iter()
+        .map(|b| format!("{b:02x}"))
+        .collect()
+}
+
+/// The current UTC date and time, `YYYY-MM-DD HH:MM UTC`.
+pub fn utc_now() -> String {
+    let seconds = std::time::SystemTime::now()
+        .duration_since(std::time::UNIX_EPOCH)
+        .map_or(0, |d| d.as_secs()) as i64;
+    let (days, rest) = (seconds.div_euclid(86_400), seconds.rem_euclid(86_400));
+    // Civil date from days since 1970-01-01 (H. Hinnant's days_from_civil, inverted).
+    let z = days + 719_468;
+    let era = z.div_euclid(146_097);
+    let doe = z - era * 146_097;
+    let yoe = (doe - doe / 1460 + doe / 36_524 - doe / 146_096) / 365;
+    let doy = doe - (365 * yoe + yoe / 4 - yoe / 100);
+    let mp = (5 * doy + 2) / 153;
+    let day = doy - (153 * mp + 2) / 5 + 1;
+    let month = if mp < 10 { mp + 3 } else { mp - 9 };
+    let year = yoe + era * 400 + i64::from(month <= 2);
+    format!(
+        "{year:04}-{month:02}-{day:02} {:02}:{:02} UTC",
+        rest / 3600,
+        (rest % 3600) / 60
+    )
+}
 
 /// Renders every output of a run in memory: (file name, contents).
 pub fn render_run(result: &RunResult) -> Result<Vec<(String, Vec<u8>)>, Error> {
-    let summary = summary::Summary::from_result(result);
-    let json = serde_json::to_string_pretty(&summary).map_err(|e| Error::Write {
-        path: "summary.json".into(),
-        message: e.to_string(),
-    })?;
-    let (svg, png) = chart::concentrations(result).map_err(|message| Error::Write {
-        path: "concentrations".into(),
+    let render_error = |name: &str, message: String| Error::Write {
+        path: name.into(),
         message,
-    })?;
-    Ok(vec![
+    };
+    let summary = summary::Summary::from_result(result);
+    let json =
+        serde_json::to_string_pretty(&summary).map_err(|e| render_error("summary.json", e.to_string()))?;
+    let sha = sha256_hex(&result.network.source_text);
+    let mut files: Vec<(String, Vec<u8>)> = vec![
         ("summary.json".into(), (json + "\n").into_bytes()),
         (
             "trajectory.csv".into(),
             table::trajectory_csv(result).into_bytes(),
         ),
-        ("concentrations.svg".into(), svg.into_bytes()),
-        ("concentrations.png".into(), png),
-    ])
+        ("rates.csv".into(), table::rates_csv(result).into_bytes()),
+        (
+            "summary_row.csv".into(),
+            table::summary_row_csv(result, &sha).into_bytes(),
+        ),
+    ];
+    if !result.settings.output_times.is_empty() {
+        files.push(("table_at_times.csv".into(), table::times_csv(result).into_bytes()));
+    }
+    let mut charts = Vec::new();
+    for (stem, figure) in chart::figures(result) {
+        let (svg, png) = figure.render().map_err(|m| render_error(stem, m))?;
+        charts.push((figure.title.clone(), svg.clone()));
+        files.push((format!("{stem}.svg"), svg.into_bytes()));
+        files.push((format!("{stem}.png"), png));
+    }
+    let mut names: Vec<String> = files.iter().map(|(n, _)| n.clone()).collect();
+    names.push("report.html".into());
+    let inputs = html::ReportInputs {
+        input_sha256: &sha,
+        date: &utc_now(),
+        charts: &charts,
+        files: &names,
+    };
+    files.push(("report.html".into(), html::render(result, &inputs).into_bytes()));
+    Ok(files)
 }
 
 /// Writes one new file whole (temporary file, then rename); refuses to replace an existing file
@@ -123,6 +190,11 @@ pub fn write_all(dir: &Path, files: &[(String, Vec<u8>)], force: bool) -> Result
 }
 
 /// Seconds with a friendlier unit beside them when the number is large.
+/// A time in the chosen output unit, four significant figures.
+pub fn terminal_time(seconds: f64, unit: crate::units::TimeUnit) -> String {
+    format!("{} {}", significant(seconds / unit.seconds()), unit.symbol())
+}
+
 pub fn format_duration(seconds: f64) -> String {
     let friendly = if seconds >= 86_400.0 * 2.0 {
         format!(" ({:.2} d)", seconds / 86_400.0)

@@ -1,5 +1,6 @@
 //! CSV tables.
 
+use crate::kinetics::RateModel;
 use crate::run::RunResult;
 
 /// Points added between accepted steps so curves look smooth on linear and log axes.
@@ -24,9 +25,20 @@ pub fn output_times(result: &RunResult) -> Vec<f64> {
     times
 }
 
-/// `trajectory.csv`: time, then one column per species, in the chosen output units; for
-/// networks with gases, their partial pressures and the total pressure in bar.
+/// `trajectory.csv`: the state at every accepted step and on linear and log time grids.
 pub fn trajectory_csv(result: &RunResult) -> String {
+    state_table(result, &output_times(result))
+}
+
+/// `table_at_times.csv`: the state at the user's output times.
+pub fn times_csv(result: &RunResult) -> String {
+    state_table(result, &result.settings.output_times)
+}
+
+/// Time, then one column per species, in the chosen output units; for networks with gases,
+/// their partial pressures and the total pressure in bar. Times after the end of the integration
+/// give the end state (the run only ends early at equilibrium).
+fn state_table(result: &RunResult, times: &[f64]) -> String {
     let units = result.settings.units;
     let (t_scale, c_scale) = (units.time.seconds(), units.concentration.mol_per_l());
     let mut writer = csv::Writer::from_writer(Vec::new());
@@ -44,7 +56,7 @@ pub fn trajectory_csv(result: &RunResult) -> String {
     }
     // Writing to memory cannot fail.
     let _ = writer.write_record(&header);
-    for t in output_times(result) {
+    for &t in times {
         let state = result.solution.trajectory.state_at(t);
         let mut row = vec![format!("{:.9e}", t / t_scale)];
         row.extend(state.iter().map(|c| format!("{:.9e}", c / c_scale)));
@@ -54,5 +66,99 @@ pub fn trajectory_csv(result: &RunResult) -> String {
         }
         let _ = writer.write_record(&row);
     }
+    String::from_utf8(writer.into_inner().unwrap_or_default()).unwrap_or_default()
+}
+
+/// `rates.csv`: forward, reverse and net rate and Q/K of every step at the output times.
+pub fn rates_csv(result: &RunResult) -> String {
+    let model = RateModel::new(&result.network);
+    let m = model.n_steps();
+    let t_unit = result.settings.units.time;
+    let mut writer = csv::Writer::from_writer(Vec::new());
+    let mut header = vec![format!("time [{}]", t_unit.symbol())];
+    for j in 1..=m {
+        header.push(format!("step {j} forward [mol/(L s)]"));
+        header.push(format!("step {j} reverse [mol/(L s)]"));
+        header.push(format!("step {j} net [mol/(L s)]"));
+        header.push(format!("step {j} Q/K"));
+    }
+    let _ = writer.write_record(&header);
+    let (mut f, mut r) = (vec![0.0; m], vec![0.0; m]);
+    for t in output_times(result) {
+        model.step_rates(&result.solution.trajectory.state_at(t), &mut f, &mut r);
+        let mut row = vec![format!("{:.9e}", t / t_unit.seconds())];
+        for j in 0..m {
+            let reversible = result.network.reactions[j].reversible;
+            let q_over_k = if reversible && f[j] > 0.0 {
+                format!("{:.9e}", r[j] / f[j])
+            } else {
+                String::new()
+            };
+            row.extend([
+                format!("{:.9e}", f[j]),
+                format!("{:.9e}", r[j]),
+                format!("{:.9e}", f[j] - r[j]),
+                q_over_k,
+            ]);
+        }
+        let _ = writer.write_record(&row);
+    }
+    String::from_utf8(writer.into_inner().unwrap_or_default()).unwrap_or_default()
+}
+
+/// `summary_row.csv`: one header and one row, with columns in a fixed order, so rows of many
+/// runs of the same network can be appended into one table.
+pub fn summary_row_csv(result: &RunResult, input_sha256: &str) -> String {
+    let mut header: Vec<String> = [
+        "case",
+        "title",
+        "input_sha256",
+        "temperature [K]",
+        "final_time [s]",
+    ]
+    .iter()
+    .map(|s| s.to_string())
+    .collect();
+    let mut row = vec![
+        result.network.case_name(),
+        result.network.title.clone(),
+        input_sha256.to_string(),
+        format!("{}", result.network.temperature),
+        format!("{:.9e}", result.final_time),
+    ];
+    for s in &result.settling {
+        header.push(format!("time to equilibrium {} % [s]", s.tolerance * 100.0));
+        row.push(s.seconds.map_or(String::new(), |t| format!("{t:.9e}")));
+    }
+    header.push("slowest relaxation time [s]".into());
+    row.push(
+        result
+            .relaxation
+            .as_ref()
+            .ok()
+            .and_then(|m| m.first())
+            .map_or(String::new(), |m| format!("{:.9e}", m.tau_seconds)),
+    );
+    header.push("routes agree".into());
+    row.push(
+        result
+            .disagreement
+            .map_or(String::new(), |_| (!result.disagrees).to_string()),
+    );
+    header.push("audit consistent".into());
+    row.push(result.audit.consistent.to_string());
+    for (i, s) in result.network.species.iter().enumerate() {
+        header.push(format!("{} final [mol/L]", s.name));
+        row.push(format!("{:.9e}", result.final_state[i]));
+    }
+    if let Ok(solved) = &result.solved {
+        for (i, s) in result.network.species.iter().enumerate() {
+            header.push(format!("{} equilibrium [mol/L]", s.name));
+            row.push(format!("{:.9e}", solved.concentrations[i]));
+        }
+    }
+    let mut writer = csv::Writer::from_writer(Vec::new());
+    let _ = writer.write_record(&header);
+    let _ = writer.write_record(&row);
     String::from_utf8(writer.into_inner().unwrap_or_default()).unwrap_or_default()
 }
