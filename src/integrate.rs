@@ -429,20 +429,15 @@ fn factor(err: f64) -> f64 {
 fn initial_step(y: &[f64], f: &[f64], options: &Options, end: f64) -> f64 {
     let n = y.len() as f64;
     let sc = |i: usize| options.atol[i] + options.rtol * y[i].abs();
-    let d0 = (y
-        .iter()
-        .enumerate()
-        .map(|(i, v)| (v / sc(i)).powi(2))
-        .sum::<f64>()
-        / n)
-        .sqrt();
-    let d1 = (f
-        .iter()
-        .enumerate()
-        .map(|(i, v)| (v / sc(i)).powi(2))
-        .sum::<f64>()
-        / n)
-        .sqrt();
+    let rms = |v: &[f64]| {
+        (v.iter()
+            .enumerate()
+            .map(|(i, v)| (v / sc(i)).powi(2))
+            .sum::<f64>()
+            / n)
+            .sqrt()
+    };
+    let (d0, d1) = (rms(y), rms(f));
     let h = if d0 < 1e-5 || d1 < 1e-5 {
         1e-6
     } else {
