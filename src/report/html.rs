@@ -84,7 +84,7 @@ pub fn render(result: &RunResult, inputs: &ReportInputs<'_>) -> String {
     let _ = writeln!(h, "<h2>Conditions</h2>");
     let _ = writeln!(
         h,
-        "<p>Temperature {} K (isothermal), constant volume, ideal mass-action kinetics. Integration tolerances: relative {}, absolute {} mol/L unless set per species.</p>",
+        "<p>Temperature {} K (isothermal), constant volume, ideal mass-action kinetics. Integration tolerances: relative {:e}, absolute {:e} mol/L unless set per species.</p>",
         number(net.temperature),
         result.settings.rtol,
         result.settings.atol
