@@ -17,12 +17,15 @@ use serde::Serialize;
 
 use crate::constants::{rt_kj, BOLTZMANN, PLANCK};
 use crate::network::{kc_from_standard, Network, Phase};
-use crate::stoich::{net_change, Echelon};
+use crate::stoich::{net_change, Echelon, Insert};
 
 /// Default tolerance on deviations, kJ/mol (about 4 % in K at 298 K).
 pub const DEFAULT_TOL_KJ: f64 = 0.1;
 /// Diffusion limit for bimolecular steps in solution, L/(mol s) (common practice).
 const DIFFUSION_LIMIT: f64 = 1e10;
+/// Above this many reversible steps, cycles are reported by their closing step (a full cycle
+/// basis fills in and costs O(n³)), and no correction is proposed.
+const CYCLE_BASIS_LIMIT: usize = 400;
 /// Steps whose kf/kr spans more decades than this are flagged as extremely stiff.
 const STIFF_DECADES: f64 = 12.0;
 
@@ -378,8 +381,9 @@ pub fn audit(network: &Network, tol_kj: f64, adjust: Adjust) -> Audit {
         .filter_map(|s| s.activation.as_ref())
         .any(|a| !a.consistent);
     let consistent = !inconsistent_k && !inconsistent_cycle && !inconsistent_activation && balance.is_empty();
+    let small = balanced_steps(network).len() <= CYCLE_BASIS_LIMIT;
     let correction =
-        (inconsistent_k || inconsistent_cycle).then(|| correct(network, &steps, &cycles, adjust));
+        (small && (inconsistent_k || inconsistent_cycle)).then(|| correct(network, &steps, &cycles, adjust));
     Audit {
         model: "isothermal, ideal mass-action kinetics; equilibrium constants at the stated temperature",
         cautions: crate::CAUTIONS.iter().map(|c| c.to_string()).collect(),
@@ -439,6 +443,9 @@ fn balanced_steps(network: &Network) -> Vec<usize> {
 /// A basis of the cycles among the reversible steps: vectors x with N x = 0.
 fn cycles(network: &Network, rt: f64) -> Vec<CycleFinding> {
     let steps = balanced_steps(network);
+    if steps.len() > CYCLE_BASIS_LIMIT {
+        return closing_steps(network, &steps, rt);
+    }
     let mut rows: Vec<Vec<(usize, f64)>> = vec![Vec::new(); network.n_species()];
     for (k, &j) in steps.iter().enumerate() {
         let r = &network.reactions[j];
@@ -476,6 +483,31 @@ fn cycles(network: &Network, rt: f64) -> Vec<CycleFinding> {
             }
         })
         .collect()
+}
+
+/// For large networks: each step that closes a cycle with earlier steps, with the cycle's
+/// mismatch. Found by eliminating the steps' stoichiometric rows with ln(kf/kr) as right-hand
+/// side, which stays sparse where a full cycle basis fills in. The cycle is named by its closing
+/// step only.
+fn closing_steps(network: &Network, steps: &[usize], rt: f64) -> Vec<CycleFinding> {
+    let mut echelon = Echelon::new(network.n_species());
+    let mut found = Vec::new();
+    for &j in steps {
+        let r = &network.reactions[j];
+        let ln_k = (r.kf / r.kr).ln();
+        if let Insert::Dependent { residual } = echelon.insert(&net_change(&r.reactants, &r.products), ln_k) {
+            found.push(CycleFinding {
+                steps: vec![CycleStep {
+                    step: j + 1,
+                    equation: r.equation.clone(),
+                    coefficient: 1.0,
+                }],
+                product: residual.exp(),
+                deviation_kj_per_mol: rt * residual,
+            });
+        }
+    }
+    found
 }
 
 /// Scales a vector so its smallest entry is ±1 and snaps near-integers.

@@ -206,3 +206,28 @@ kr = 1.0e-12
         "{messages:?}"
     );
 }
+
+#[test]
+fn large_networks_report_cycles_by_their_closing_step() {
+    // A ring of 420 isomers X0 <=> X1 <=> ... <=> X419 <=> X0 with kf/kr = 1 on every step except
+    // the closing one, where it is 3: Π(kf/kr) around the ring is 3 (Wegscheider 1901), so the
+    // ring is off by RT ln 3. Above 400 reversible steps the audit names the closing step.
+    let n = 420;
+    let mut text = String::from("[species]\nX0 = 1.0\n");
+    for i in 1..n {
+        text += &format!("X{i} = 0.0\n");
+    }
+    for i in 0..n {
+        let kr = if i == n - 1 { 1.0 / 3.0 } else { 1.0 };
+        text += &format!(
+            "\n[[reaction]]\nequation = \"X{i} <=> X{}\"\nkf = 1.0\nkr = {kr}\n",
+            (i + 1) % n
+        );
+    }
+    let found = audit(&network(&text), 0.1, Adjust::Kr);
+    assert_eq!(found.cycles.len(), 1);
+    assert_eq!(found.cycles[0].steps[0].step, n);
+    // Arithmetic on ln 3 through one elimination pass: 1e-9 relative.
+    assert!(rel(found.cycles[0].deviation_kj_per_mol.abs(), RT_298 * 3f64.ln()) < 1e-9);
+    assert!(!found.consistent && found.correction.is_none());
+}

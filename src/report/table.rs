@@ -69,25 +69,44 @@ fn state_table(result: &RunResult, times: &[f64]) -> String {
     String::from_utf8(writer.into_inner().unwrap_or_default()).unwrap_or_default()
 }
 
-/// `rates.csv`: forward, reverse and net rate and Q/K of every step at the output times.
+/// Most steps in `rates.csv`: beyond this, the busiest steps (largest peak forward rate) are
+/// kept so that tables of large networks stay a manageable size.
+pub const MAX_RATE_STEPS: usize = 100;
+
+/// `rates.csv`: forward, reverse and net rate and Q/K of every step (or of the
+/// [`MAX_RATE_STEPS`] busiest) at the output times.
 pub fn rates_csv(result: &RunResult) -> String {
     let model = RateModel::new(&result.network);
     let m = model.n_steps();
+    let times = output_times(result);
+    let (mut f, mut r) = (vec![0.0; m], vec![0.0; m]);
+    let rates: Vec<(Vec<f64>, Vec<f64>)> = times
+        .iter()
+        .map(|&t| {
+            model.step_rates(&result.solution.trajectory.state_at(t), &mut f, &mut r);
+            (f.clone(), r.clone())
+        })
+        .collect();
+    let mut steps: Vec<usize> = (0..m).collect();
+    if m > MAX_RATE_STEPS {
+        let peak = |j: usize| rates.iter().map(|(f, _)| f[j]).fold(0.0, f64::max);
+        steps.sort_by(|&a, &b| peak(b).total_cmp(&peak(a)));
+        steps.truncate(MAX_RATE_STEPS);
+        steps.sort_unstable();
+    }
     let t_unit = result.settings.units.time;
     let mut writer = csv::Writer::from_writer(Vec::new());
     let mut header = vec![format!("time [{}]", t_unit.symbol())];
-    for j in 1..=m {
+    for j in steps.iter().map(|j| j + 1) {
         header.push(format!("step {j} forward [mol/(L s)]"));
         header.push(format!("step {j} reverse [mol/(L s)]"));
         header.push(format!("step {j} net [mol/(L s)]"));
         header.push(format!("step {j} Q/K"));
     }
     let _ = writer.write_record(&header);
-    let (mut f, mut r) = (vec![0.0; m], vec![0.0; m]);
-    for t in output_times(result) {
-        model.step_rates(&result.solution.trajectory.state_at(t), &mut f, &mut r);
+    for (t, (f, r)) in times.iter().zip(&rates) {
         let mut row = vec![format!("{:.9e}", t / t_unit.seconds())];
-        for j in 0..m {
+        for &j in &steps {
             let reversible = result.network.reactions[j].reversible;
             let q_over_k = if reversible && f[j] > 0.0 {
                 format!("{:.9e}", r[j] / f[j])
