@@ -245,7 +245,9 @@ pub fn integrate(
     .into();
     let mut detector = EquilibriumDetector::new(&jac_pattern, laws, options.force_dense);
 
-    let end = options.until.unwrap_or(options.max_time);
+    // Never give up before the requested time.
+    let max_time = options.max_time.max(options.until.unwrap_or(0.0));
+    let end = options.until.unwrap_or(max_time);
     let mut t = 0.0;
     let mut y = c0.to_vec();
     let mut f = vec![0.0; n];
@@ -270,26 +272,23 @@ pub fn integrate(
     let mut rejected_last = false;
 
     let stop = loop {
-        let target = if options.until.is_some_and(|u| t < u) {
-            options.until.unwrap_or(end)
-        } else {
-            options.max_time
-        };
-        let done_until = options.until.is_none_or(|u| t >= u);
-        if done_until && (!options.to_equilibrium || equilibrium_at.is_some()) {
+        // The requested time, while it is still ahead.
+        let until_ahead = options.until.filter(|&u| t < u);
+        if until_ahead.is_none() && (!options.to_equilibrium || equilibrium_at.is_some()) {
             break if options.until.is_some() {
                 StopReason::ReachedTime
             } else {
                 StopReason::Equilibrium
             };
         }
-        if t >= options.max_time {
-            break if options.until.is_some_and(|u| u <= t) {
+        if t >= max_time {
+            break if options.until.is_some() {
                 StopReason::ReachedTime
             } else {
                 StopReason::MaxTime
             };
         }
+        let target = until_ahead.unwrap_or(max_time);
         if stats.steps >= options.max_steps {
             break StopReason::MaxSteps;
         }

@@ -370,7 +370,7 @@ fn rates(result: &RunResult, frame: &Frame) -> Figure {
     let shown = busiest_steps(&forward, |_| true);
     let mut series = Vec::new();
     for (k, &j) in shown.iter().enumerate() {
-        let label = step_label(result, j);
+        let label = step_label(j);
         series.push(Series {
             name: format!("{label} fwd"),
             points: times
@@ -441,7 +441,7 @@ fn quotients(result: &RunResult, frame: &Frame) -> Option<Figure> {
         .iter()
         .enumerate()
         .map(|(k, &j)| Series {
-            name: step_label(result, j),
+            name: step_label(j),
             points: times
                 .iter()
                 .zip(forward[j].iter().zip(&reverse[j]))
@@ -474,7 +474,7 @@ fn quotients(result: &RunResult, frame: &Frame) -> Option<Figure> {
     })
 }
 
-fn step_label(_result: &RunResult, j: usize) -> String {
+fn step_label(j: usize) -> String {
     format!("step {}", j + 1)
 }
 
