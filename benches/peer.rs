@@ -1,0 +1,132 @@
+//! Side-by-side figures for the peer benchmark networks in `../shared/bench/nets/` (the neutral
+//! JSON format described in `../shared/bench/networks.py`): kinequil's integration time and work
+//! counts on each network, and its accuracy against the cached reference state. The peers'
+//! figures (general-purpose stiff solvers, same networks, same 2-core machine) are in
+//! `../shared/bench/RESULTS.md`; compare counts, and times as ratios within one machine.
+//!
+//! Run: `cargo bench --bench peer` (optionally `-- NAME` to pick networks). Same tolerances as the
+//! peers' main pass: rtol 1e-6, atol 1e-10.
+
+use std::path::{Path, PathBuf};
+use std::time::Instant;
+
+use kinequil::integrate::{integrate, Options};
+use kinequil::kinetics::RateModel;
+use kinequil::network::Network;
+use kinequil::stoich::Stoichiometry;
+
+fn nets_dir() -> PathBuf {
+    Path::new(env!("CARGO_MANIFEST_DIR")).join("../shared/bench/nets")
+}
+
+/// The JSON network as a kinequil network file.
+fn to_toml(net: &serde_json::Value) -> String {
+    let mut text = String::from("[species]\n");
+    for s in net["species"].as_array().unwrap() {
+        let name = s.as_str().unwrap();
+        let c0 = net["initial"].get(name).and_then(|v| v.as_f64()).unwrap_or(0.0);
+        text += &format!("{name} = {c0:e}\n");
+    }
+    let side = |m: &serde_json::Value| {
+        let terms: Vec<String> = m
+            .as_object()
+            .unwrap()
+            .iter()
+            .map(|(s, c)| format!("{} {s}", c.as_f64().unwrap()))
+            .collect();
+        if terms.is_empty() {
+            "0".to_string()
+        } else {
+            terms.join(" + ")
+        }
+    };
+    for r in net["reactions"].as_array().unwrap() {
+        let kr = r["kr"].as_f64().unwrap();
+        let arrow = if kr > 0.0 { "<=>" } else { "=>" };
+        text += &format!(
+            "\n[[reaction]]\nequation = \"{} {arrow} {}\"\nkf = {:e}\n",
+            side(&r["reactants"]),
+            side(&r["products"]),
+            r["kf"].as_f64().unwrap()
+        );
+        if kr > 0.0 {
+            text += &format!("kr = {kr:e}\n");
+        }
+    }
+    text
+}
+
+fn main() {
+    let filter: Vec<String> = std::env::args().skip(1).filter(|a| !a.starts_with('-')).collect();
+    let dir = nets_dir();
+    let Ok(entries) = std::fs::read_dir(&dir) else {
+        println!(
+            "no peer networks at {} (the shared bench folder is not beside the project)",
+            dir.display()
+        );
+        return;
+    };
+    let mut nets: Vec<PathBuf> = entries
+        .filter_map(|e| e.ok().map(|e| e.path()))
+        .filter(|p| p.extension().is_some_and(|e| e == "json") && !p.to_string_lossy().contains(".ref"))
+        .collect();
+    nets.sort_by_key(|p| std::fs::metadata(p).map(|m| m.len()).unwrap_or(0));
+    println!(
+        "{:<10} {:>5} {:>9} {:>7} {:>7} {:>6} {:>6} {:>10} {:>10}",
+        "net", "N", "t_end", "steps", "rhs", "jac", "LU", "seconds", "err_rel"
+    );
+    for path in nets {
+        let name = path.file_stem().unwrap().to_string_lossy().into_owned();
+        if !filter.is_empty() && !filter.iter().any(|f| name.contains(f.as_str())) {
+            continue;
+        }
+        let json: serde_json::Value = serde_json::from_str(&std::fs::read_to_string(&path).unwrap()).unwrap();
+        let network = Network::from_text(&to_toml(&json), &path).unwrap_or_else(|e| panic!("{e}"));
+        let t_end = json["t_end"].as_f64().unwrap();
+        let stoich = Stoichiometry::new(&network);
+        let model = RateModel::new(&network);
+        let options = Options {
+            rtol: 1e-6,
+            atol: vec![1e-10; network.n_species()],
+            until: Some(t_end),
+            to_equilibrium: false,
+            ..Options::new(network.n_species())
+        };
+        let started = Instant::now();
+        let solution = integrate(&model, &stoich.conservation, &network.initial_state(), &options).unwrap();
+        let seconds = started.elapsed().as_secs_f64();
+        let reference = dir.join(format!("{name}.ref.json"));
+        let err = std::fs::read_to_string(&reference)
+            .ok()
+            .and_then(|t| serde_json::from_str::<serde_json::Value>(&t).ok())
+            .map(|r| {
+                let y: Vec<f64> = r["y"]
+                    .as_array()
+                    .unwrap()
+                    .iter()
+                    .map(|v| v.as_f64().unwrap())
+                    .collect();
+                let largest = y.iter().fold(0.0_f64, |m, v| m.max(v.abs()));
+                let end = solution.trajectory.last_state();
+                // The peers' measure: largest relative error over species above 1e-8 of the largest.
+                y.iter()
+                    .zip(end)
+                    .filter(|(r, _)| r.abs() >= 1e-8 * largest)
+                    .map(|(r, v)| (v - r).abs() / r.abs())
+                    .fold(0.0, f64::max)
+            });
+        let s = &solution.stats;
+        println!(
+            "{:<10} {:>5} {:>9.1e} {:>7} {:>7} {:>6} {:>6} {:>10.4} {:>10}",
+            name,
+            network.n_species(),
+            t_end,
+            s.steps,
+            s.rhs_evals,
+            s.jacobian_evals,
+            s.lu_factorizations,
+            seconds,
+            err.map_or("-".into(), |e| format!("{e:.2e}"))
+        );
+    }
+}
