@@ -53,6 +53,9 @@ struct Frame {
     times: Vec<f64>,
     log_time: bool,
     x_start: f64,
+    /// End of the time axis: the reported time, or on a linear axis after an automatic stop at
+    /// equilibrium, twice the end of the action (the rest is a flat line).
+    x_end: f64,
     time_unit: TimeUnit,
     chosen: Vec<usize>,
     left_out: Vec<String>,
@@ -80,6 +83,11 @@ impl Frame {
         } else {
             0.0
         };
+        let x_end = if !log_time && result.settings.until.is_none() && active_end > 0.0 {
+            (2.0 * active_end).min(end)
+        } else {
+            end
+        };
         let chosen = match &result.settings.chart.species {
             Some(list) => list.clone(),
             None => largest_changes(result),
@@ -92,6 +100,7 @@ impl Frame {
             times,
             log_time,
             x_start,
+            x_end,
             time_unit: result.settings.units.time,
             chosen,
             left_out,
@@ -114,7 +123,7 @@ impl Frame {
         self.times
             .iter()
             .copied()
-            .filter(move |&t| !self.log_time || t >= self.x_start)
+            .filter(move |&t| (!self.log_time || t >= self.x_start) && t <= self.x_end)
     }
 
     fn left_out_note(&self) -> Option<String> {
@@ -237,7 +246,7 @@ fn concentrations(result: &RunResult, frame: &Frame) -> Figure {
         y_label: format!("concentration [{}]", c_unit.symbol()),
         x_log: frame.log_time,
         y_log: false,
-        x_range: (frame.x(frame.x_start), frame.x(result.final_time)),
+        x_range: (frame.x(frame.x_start), frame.x(frame.x_end)),
         y_range: (0.0, if y_max > 0.0 { 1.05 * y_max } else { 1.0 }),
         series,
         levels,
@@ -414,7 +423,7 @@ fn rates(result: &RunResult, frame: &Frame) -> Figure {
         y_label: "rate [mol/(L s)]".into(),
         x_log: frame.log_time,
         y_log: true,
-        x_range: (frame.x(frame.x_start), frame.x(result.final_time)),
+        x_range: (frame.x(frame.x_start), frame.x(frame.x_end)),
         y_range: (lo, hi),
         series,
         levels: Vec::new(),
@@ -464,7 +473,7 @@ fn quotients(result: &RunResult, frame: &Frame) -> Option<Figure> {
         y_label: "Q/K".into(),
         x_log: frame.log_time,
         y_log: true,
-        x_range: (frame.x(frame.x_start), frame.x(result.final_time)),
+        x_range: (frame.x(frame.x_start), frame.x(frame.x_end)),
         y_range: ((lo / 2.0).max(1e-8), (hi * 2.0).min(1e8)),
         series,
         levels: vec![Level { y: 1.0, style: GREY }],
