@@ -232,8 +232,15 @@ fn product(factors: &[Factor], c: &[f64], differentiate: Option<usize>) -> f64 {
 /// x^a. Integer orders keep the sign of a slightly negative x (smooth through zero, as the
 /// integrator expects); fractional orders use max(x, 0), floored for negative exponents.
 fn power(x: f64, a: f64, derivative: bool) -> f64 {
+    // Orders 0, 1 and 2 are nearly all of mass action: spare them the general power.
     if a == 0.0 {
         return 1.0;
+    }
+    if a == 1.0 {
+        return x;
+    }
+    if a == 2.0 {
+        return x * x;
     }
     if a.fract() == 0.0 && a.abs() < 64.0 {
         return x.powi(a as i32);
