@@ -79,6 +79,10 @@ pub struct StepFinding {
     /// Units of Kc implied by the stoichiometry.
     pub k_units: Option<String>,
     pub references: Vec<Reference>,
+    /// The first independent reference's K and deviation, for scripts that want one number.
+    #[serde(rename = "K")]
+    pub k: Option<f64>,
+    pub deviation_kj_per_mol: Option<f64>,
     /// Ea,f − Ea,r against the enthalpy of reaction, when both are known.
     pub activation: Option<ActivationCheck>,
 }
@@ -291,6 +295,8 @@ pub fn audit(network: &Network, tol_kj: f64, adjust: Adjust) -> Audit {
             kf_units: name(forward_order),
             kr_units: r.reversible.then(|| name(reverse_order)),
             k_units: r.reversible.then(|| concentration_power(delta_n)),
+            k: references.iter().find(|r| r.independent).map(|r| r.k),
+            deviation_kj_per_mol: references.iter().find(|r| r.independent).map(|r| r.deviation_kj_per_mol),
             references,
             activation: activation_check(network, r, &net, delta_n_gas, tol_kj),
         });
