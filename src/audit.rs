@@ -296,7 +296,10 @@ pub fn audit(network: &Network, tol_kj: f64, adjust: Adjust) -> Audit {
             kr_units: r.reversible.then(|| name(reverse_order)),
             k_units: r.reversible.then(|| concentration_power(delta_n)),
             k: references.iter().find(|r| r.independent).map(|r| r.k),
-            deviation_kj_per_mol: references.iter().find(|r| r.independent).map(|r| r.deviation_kj_per_mol),
+            deviation_kj_per_mol: references
+                .iter()
+                .find(|r| r.independent)
+                .map(|r| r.deviation_kj_per_mol),
             references,
             activation: activation_check(network, r, &net, delta_n_gas, tol_kj),
         });

@@ -219,7 +219,13 @@ fn check_exits_0_1_2_and_writes_corrections_to_a_new_file() {
     let report: serde_json::Value = serde_json::from_slice(&out.stdout).unwrap();
     // Per step: kf/kr, the first independent K and its deviation (null here: step 2's K only
     // defines kr), every reference, and the implied units.
-    for key in ["kf_over_kr", "K", "deviation_kj_per_mol", "references", "kf_units"] {
+    for key in [
+        "kf_over_kr",
+        "K",
+        "deviation_kj_per_mol",
+        "references",
+        "kf_units",
+    ] {
         assert!(report["steps"][0].get(key).is_some(), "step lacks {key}");
     }
     assert!(report["steps"][1]["references"][0]
