@@ -211,14 +211,59 @@ fn left_null_space(n_species: usize, columns: &[Row]) -> (Vec<ConservationLaw>, 
     for column in columns {
         echelon.insert(column, 0.0);
     }
-    let laws = echelon
-        .null_space()
+    let mut rows: Vec<Row> = echelon.null_space().into_iter().map(tidy).collect();
+    fewer_negatives(&mut rows);
+    let laws = rows
         .into_iter()
-        .map(|coefficients| ConservationLaw {
-            coefficients: tidy(coefficients),
-        })
+        .map(|coefficients| ConservationLaw { coefficients })
         .collect();
     (laws, echelon.rank())
+}
+
+/// Most bases this size are worth polishing; beyond it the quadratic search is skipped.
+const POLISH_LIMIT: usize = 200;
+
+/// Adds multiples of one law to another while that removes negative coefficients, so that laws
+/// read as totals of moieties (`acid + ester`) rather than differences (`ester - water`). The
+/// span is unchanged: each law only gains multiples of the others.
+fn fewer_negatives(laws: &mut [Row]) {
+    let negatives = |row: &Row| row.iter().filter(|e| e.1 < 0.0).count();
+    if laws.len() > POLISH_LIMIT {
+        return;
+    }
+    for _pass in 0..10 {
+        let mut improved = false;
+        for i in 0..laws.len() {
+            for j in 0..laws.len() {
+                if i == j || negatives(&laws[i]) == 0 {
+                    continue;
+                }
+                // The smallest multiple of law j that lifts every negative entry of law i it can.
+                let alpha = laws[i]
+                    .iter()
+                    .filter(|e| e.1 < 0.0)
+                    .filter_map(|e| {
+                        laws[j]
+                            .iter()
+                            .find(|f| f.0 == e.0 && f.1 > 0.0)
+                            .map(|f| -e.1 / f.1)
+                    })
+                    .fold(0.0_f64, f64::max);
+                if alpha == 0.0 {
+                    continue;
+                }
+                let mut candidate = axpy(&laws[i], alpha, &laws[j]);
+                drop_small(&mut candidate, 1.0);
+                if !candidate.is_empty() && negatives(&candidate) < negatives(&laws[i]) {
+                    laws[i] = tidy(candidate);
+                    improved = true;
+                }
+            }
+        }
+        if !improved {
+            break;
+        }
+    }
 }
 
 /// a + s·b for sorted sparse rows.
@@ -313,6 +358,19 @@ mod tests {
         let columns = vec![net_change(&[], &[(0, 1.0)]), net_change(&[(0, 1.0)], &[(1, 1.0)])];
         let (laws, rank) = left_null_space(2, &columns);
         assert_eq!((laws.len(), rank), (0, 2));
+    }
+
+    #[test]
+    fn laws_read_as_totals_where_they_can() {
+        // acid + alcohol <=> ester + water: the basis can be written without minus signs, e.g.
+        // acid + ester, alcohol + ester, acid + water (common practice: moiety totals).
+        let columns = vec![net_change(&[(0, 1.0), (1, 1.0)], &[(2, 1.0), (3, 1.0)])];
+        let (laws, _) = left_null_space(4, &columns);
+        assert_eq!(laws.len(), 3);
+        assert_laws_annihilate(&columns, &laws);
+        for law in &laws {
+            assert!(law.coefficients.iter().all(|e| e.1 > 0.0), "{law:?}");
+        }
     }
 
     #[test]
