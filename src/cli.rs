@@ -236,17 +236,7 @@ fn run_command(args: RunArgs) -> Result<String, Error> {
         .unwrap_or_else(|| PathBuf::from("output").join(network.case_name()));
     // Refuse before the work, not after it, when earlier results are in the way.
     if !args.force {
-        let existing: Vec<&str> = report::RUN_FILES
-            .iter()
-            .copied()
-            .filter(|f| out.join(f).exists())
-            .collect();
-        if !existing.is_empty() {
-            return Err(Error::OutputExists {
-                path: out,
-                existing: existing.join(", "),
-            });
-        }
+        report::refuse_existing(&out, report::RUN_FILES)?;
     }
     let settings = RunSettings {
         until: args.until,

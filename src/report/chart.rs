@@ -1,12 +1,11 @@
 //! The charts of a run, as [`Figure`]s: concentrations, approach to equilibrium, forward and
 //! reverse rates, and Q/K per step.
 
-use crate::kinetics::RateModel;
 use crate::run::{noise_levels, RunResult};
 use crate::units::TimeUnit;
 
 use super::figure::{Band, Figure, Level, Mark, Pattern, Series};
-use super::table::output_times;
+use super::table::{busiest_steps, output_times, step_rates};
 use super::terminal_time;
 
 /// Most curves drawn on one chart; the species with the largest change are kept.
@@ -41,8 +40,9 @@ pub fn figures(result: &RunResult) -> Vec<(&'static str, Figure)> {
     if let Some(figure) = approach(result, &frame) {
         out.push(("approach", figure));
     }
-    out.push(("rates", rates(result, &frame)));
-    if let Some(figure) = quotients(result, &frame) {
+    let step_rates = Rates::new(result, &frame);
+    out.push(("rates", rates(result, &frame, &step_rates)));
+    if let Some(figure) = quotients(result, &frame, &step_rates) {
         out.push(("quotients", figure));
     }
     out
@@ -347,36 +347,33 @@ fn approach(result: &RunResult, frame: &Frame) -> Option<Figure> {
     })
 }
 
-/// Forward and reverse rate of each step at the output times, mol/(L s).
-fn step_rates(result: &RunResult, times: &[f64]) -> (Vec<Vec<f64>>, Vec<Vec<f64>>) {
-    let model = RateModel::new(&result.network);
-    let m = model.n_steps();
-    let (mut forward, mut reverse) = (vec![Vec::new(); m], vec![Vec::new(); m]);
-    let (mut f, mut r) = (vec![0.0; m], vec![0.0; m]);
-    for &t in times {
-        model.step_rates(&result.solution.trajectory.state_at(t), &mut f, &mut r);
-        for j in 0..m {
-            forward[j].push(f[j]);
-            reverse[j].push(r[j]);
+/// Forward and reverse rates of every step at the frame's times, computed once for both the rate
+/// and the Q/K chart.
+struct Rates {
+    times: Vec<f64>,
+    forward: Vec<Vec<f64>>,
+    reverse: Vec<Vec<f64>>,
+}
+
+impl Rates {
+    fn new(result: &RunResult, frame: &Frame) -> Rates {
+        let times: Vec<f64> = frame.plotted_times().collect();
+        let (forward, reverse) = step_rates(result, &times);
+        Rates {
+            times,
+            forward,
+            reverse,
         }
     }
-    (forward, reverse)
 }
 
-/// The steps to draw: those with the largest forward rate, at most [`MAX_STEPS`].
-fn busiest_steps(forward: &[Vec<f64>], only: impl Fn(usize) -> bool) -> Vec<usize> {
-    let peak = |j: usize| forward[j].iter().copied().fold(0.0, f64::max);
-    let mut order: Vec<usize> = (0..forward.len()).filter(|&j| only(j)).collect();
-    order.sort_by(|&a, &b| peak(b).total_cmp(&peak(a)));
-    order.truncate(MAX_STEPS);
-    order.sort_unstable();
-    order
-}
-
-fn rates(result: &RunResult, frame: &Frame) -> Figure {
-    let times: Vec<f64> = frame.plotted_times().collect();
-    let (forward, reverse) = step_rates(result, &times);
-    let shown = busiest_steps(&forward, |_| true);
+fn rates(result: &RunResult, frame: &Frame, rates: &Rates) -> Figure {
+    let Rates {
+        times,
+        forward,
+        reverse,
+    } = rates;
+    let shown = busiest_steps(forward, MAX_STEPS, |_| true);
     let mut series = Vec::new();
     for (k, &j) in shown.iter().enumerate() {
         let label = step_label(j);
@@ -435,14 +432,17 @@ fn rates(result: &RunResult, frame: &Frame) -> Figure {
 
 /// Q/K of each reversible step over time (the ratio of reverse to forward rate for mass
 /// action); 1 is equilibrium.
-fn quotients(result: &RunResult, frame: &Frame) -> Option<Figure> {
-    let times: Vec<f64> = frame.plotted_times().collect();
-    let (forward, reverse) = step_rates(result, &times);
+fn quotients(result: &RunResult, frame: &Frame, rates: &Rates) -> Option<Figure> {
+    let Rates {
+        times,
+        forward,
+        reverse,
+    } = rates;
     let reversible = |j: usize| {
         let r = &result.network.reactions[j];
         r.reversible && r.kr > 0.0
     };
-    let shown = busiest_steps(&forward, reversible);
+    let shown = busiest_steps(forward, MAX_STEPS, reversible);
     if shown.is_empty() {
         return None;
     }

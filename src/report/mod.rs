@@ -115,6 +115,19 @@ pub fn render_run(result: &RunResult) -> Result<Vec<(String, Vec<u8>)>, Error> {
     Ok(files)
 }
 
+/// Fails with [`Error::OutputExists`] when any of `names` is already in `dir`.
+pub fn refuse_existing<'a>(dir: &Path, names: impl IntoIterator<Item = &'a str>) -> Result<(), Error> {
+    let existing: Vec<&str> = names.into_iter().filter(|name| dir.join(name).exists()).collect();
+    if existing.is_empty() {
+        Ok(())
+    } else {
+        Err(Error::OutputExists {
+            path: dir.to_path_buf(),
+            existing: existing.join(", "),
+        })
+    }
+}
+
 /// Writes one new file whole (temporary file, then rename); refuses to replace an existing file
 /// unless `force`.
 pub fn write_new_file(path: &Path, bytes: &[u8], force: bool) -> Result<(), Error> {
@@ -151,16 +164,8 @@ pub fn write_all(dir: &Path, files: &[(String, Vec<u8>)], force: bool) -> Result
         path: path.to_path_buf(),
         message: e.to_string(),
     };
-    let existing: Vec<&str> = files
-        .iter()
-        .filter(|(name, _)| dir.join(name).exists())
-        .map(|(name, _)| name.as_str())
-        .collect();
-    if !existing.is_empty() && !force {
-        return Err(Error::OutputExists {
-            path: dir.to_path_buf(),
-            existing: existing.join(", "),
-        });
+    if !force {
+        refuse_existing(dir, files.iter().map(|(name, _)| name.as_str()))?;
     }
     fs::create_dir_all(dir).map_err(|e| write_error(dir, e))?;
     let staging = dir.join(format!(".kinequil-staging-{}", std::process::id()));

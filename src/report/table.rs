@@ -73,27 +73,39 @@ fn state_table(result: &RunResult, times: &[f64]) -> String {
 /// kept so that tables of large networks stay a manageable size.
 pub const MAX_RATE_STEPS: usize = 100;
 
+/// Forward and reverse rate of every step at the given times, mol/(L s), indexed [step][time].
+pub fn step_rates(result: &RunResult, times: &[f64]) -> (Vec<Vec<f64>>, Vec<Vec<f64>>) {
+    let model = RateModel::new(&result.network);
+    let m = model.n_steps();
+    let (mut forward, mut reverse) = (vec![Vec::new(); m], vec![Vec::new(); m]);
+    let (mut f, mut r) = (vec![0.0; m], vec![0.0; m]);
+    for &t in times {
+        model.step_rates(&result.solution.trajectory.state_at(t), &mut f, &mut r);
+        for j in 0..m {
+            forward[j].push(f[j]);
+            reverse[j].push(r[j]);
+        }
+    }
+    (forward, reverse)
+}
+
+/// The steps with the largest peak forward rate among those `only` accepts, at most `limit`, in
+/// step order.
+pub fn busiest_steps(forward: &[Vec<f64>], limit: usize, only: impl Fn(usize) -> bool) -> Vec<usize> {
+    let peak = |j: usize| forward[j].iter().copied().fold(0.0, f64::max);
+    let mut order: Vec<usize> = (0..forward.len()).filter(|&j| only(j)).collect();
+    order.sort_by(|&a, &b| peak(b).total_cmp(&peak(a)));
+    order.truncate(limit);
+    order.sort_unstable();
+    order
+}
+
 /// `rates.csv`: forward, reverse and net rate and Q/K of every step (or of the
 /// [`MAX_RATE_STEPS`] busiest) at the output times.
 pub fn rates_csv(result: &RunResult) -> String {
-    let model = RateModel::new(&result.network);
-    let m = model.n_steps();
     let times = output_times(result);
-    let (mut f, mut r) = (vec![0.0; m], vec![0.0; m]);
-    let rates: Vec<(Vec<f64>, Vec<f64>)> = times
-        .iter()
-        .map(|&t| {
-            model.step_rates(&result.solution.trajectory.state_at(t), &mut f, &mut r);
-            (f.clone(), r.clone())
-        })
-        .collect();
-    let mut steps: Vec<usize> = (0..m).collect();
-    if m > MAX_RATE_STEPS {
-        let peak = |j: usize| rates.iter().map(|(f, _)| f[j]).fold(0.0, f64::max);
-        steps.sort_by(|&a, &b| peak(b).total_cmp(&peak(a)));
-        steps.truncate(MAX_RATE_STEPS);
-        steps.sort_unstable();
-    }
+    let (forward, reverse) = step_rates(result, &times);
+    let steps = busiest_steps(&forward, MAX_RATE_STEPS, |_| true);
     let t_unit = result.settings.units.time;
     let mut writer = csv::Writer::from_writer(Vec::new());
     let mut header = vec![format!("time [{}]", t_unit.symbol())];
@@ -104,19 +116,20 @@ pub fn rates_csv(result: &RunResult) -> String {
         header.push(format!("step {j} Q/K"));
     }
     let _ = writer.write_record(&header);
-    for (t, (f, r)) in times.iter().zip(&rates) {
+    for (k, t) in times.iter().enumerate() {
         let mut row = vec![format!("{:.9e}", t / t_unit.seconds())];
         for &j in &steps {
+            let (f, r) = (forward[j][k], reverse[j][k]);
             let reversible = result.network.reactions[j].reversible;
-            let q_over_k = if reversible && f[j] > 0.0 {
-                format!("{:.9e}", r[j] / f[j])
+            let q_over_k = if reversible && f > 0.0 {
+                format!("{:.9e}", r / f)
             } else {
                 String::new()
             };
             row.extend([
-                format!("{:.9e}", f[j]),
-                format!("{:.9e}", r[j]),
-                format!("{:.9e}", f[j] - r[j]),
+                format!("{f:.9e}"),
+                format!("{r:.9e}"),
+                format!("{:.9e}", f - r),
                 q_over_k,
             ]);
         }
