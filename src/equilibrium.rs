@@ -10,17 +10,22 @@
 //! solvers).
 
 use crate::network::Network;
-use crate::stoich::{Echelon, Insert, Stoichiometry};
+use crate::stoich::{Echelon, Insert, Row, Stoichiometry};
 
 /// K equations that fail to close around a cycle by more than this (in ln K) are inconsistent.
 const CYCLE_TOL: f64 = 1e-9;
-/// Relative tolerance on every conservation total at convergence.
-const TOTAL_TOL: f64 = 1e-12;
-/// A Newton step that moves no ln c by more than this has reached the rounding floor.
-const STALL: f64 = 1e-14;
-/// At the rounding floor, totals within this (relative) are accepted.
-const STALL_TOTAL_TOL: f64 = 1e-9;
-const MAX_ITERATIONS: usize = 500;
+/// Newton has converged when no concentration would change by more than this fraction.
+const STEP_TOL: f64 = 1e-13;
+/// A Newton step that stops shrinking below this has met the rounding floor of the totals: the
+/// iterate is accepted there (its residuals are reported).
+const FLOOR_TOL: f64 = 1e-8;
+const MAX_ITERATIONS: usize = 200;
+/// Up to this many pure phases, every combination of present phases is tried when the quick
+/// path fails (2^12 small solves at most).
+const PHASE_SEARCH_LIMIT: usize = 12;
+/// A used-up pure phase whose solution is supersaturated by more than this (in ln of its
+/// activity) would form again: that assemblage is not the equilibrium.
+const SATURATION_TOL: f64 = 1e-6;
 
 /// A solved equilibrium.
 #[derive(Debug, Clone, PartialEq)]
@@ -32,6 +37,8 @@ pub struct Equilibrium {
     pub max_k_residual: f64,
     /// Largest relative error of a conservation total.
     pub max_total_residual: f64,
+    /// Pure solids and liquids used up at equilibrium (held at zero), by name.
+    pub used_up: Vec<String>,
 }
 
 /// Why no equilibrium was found.
@@ -48,10 +55,17 @@ pub enum NoEquilibrium {
     },
     /// The conservation totals cannot be met with non-negative concentrations.
     Infeasible(String),
-    /// A pure solid or liquid would be used up before equilibrium.
+    /// A pure solid or liquid would be needed in a negative amount.
     PurePhaseUsedUp(String),
+    /// A used-up pure solid or liquid would form again from the solution.
+    PurePhaseReforms(String),
+    /// Newton's method did not meet its tolerance; the figures say how close it came.
     NotConverged {
         iterations: usize,
+        /// Largest relative error of a conservation total at the last iterate.
+        total_residual: f64,
+        /// Largest relative change of a concentration that the last Newton step asked for.
+        last_step: f64,
     },
 }
 
@@ -76,11 +90,21 @@ impl std::fmt::Display for NoEquilibrium {
             NoEquilibrium::Infeasible(why) => write!(f, "no equilibrium exists: {why}"),
             NoEquilibrium::PurePhaseUsedUp(name) => write!(
                 f,
-                "the pure phase `{name}` would be used up before equilibrium is reached (not yet handled)"
+                "no consistent set of pure phases found: `{name}` would be needed in a negative amount"
             ),
-            NoEquilibrium::NotConverged { iterations } => {
-                write!(f, "the equilibrium solve did not converge in {iterations} iterations")
-            }
+            NoEquilibrium::PurePhaseReforms(name) => write!(
+                f,
+                "no consistent set of pure phases found: used-up `{name}` would form again"
+            ),
+            NoEquilibrium::NotConverged {
+                iterations,
+                total_residual,
+                last_step,
+            } => write!(
+                f,
+                "the equilibrium solve did not converge in {iterations} iterations (largest relative \
+                 error of a conservation total {total_residual:.1e}, last Newton step {last_step:.1e} in ln c)"
+            ),
         }
     }
 }
@@ -90,35 +114,55 @@ pub fn solve(network: &Network, stoich: &Stoichiometry) -> Result<Equilibrium, N
     solve_from(network, stoich, &network.initial_state())
 }
 
-/// Solves the equilibrium reached from the state `c0`. A pure solid or liquid that would be
-/// needed in a negative amount is used up: it is set to zero, the steps it takes part in drop out
-/// of the equilibrium conditions, and the rest is solved again (one phase at a time).
+/// Solves the equilibrium reached from the state `c0`.
+///
+/// Pure solids and liquids are either present (activity 1, any non-negative amount) or used up
+/// (amount zero, solution not supersaturated in them). The quick path assumes every phase present
+/// and drops, one at a time, any that would be needed in a negative amount. When that fails (two
+/// phases that cannot coexist, or a dropped phase that would form again), every combination of
+/// present phases is tried, largest first: by the phase rule exactly one gives a valid state.
 pub fn solve_from(
     network: &Network,
     stoich: &Stoichiometry,
     c0: &[f64],
 ) -> Result<Equilibrium, NoEquilibrium> {
+    check_mass_action(network, stoich)?;
+    let pure: Vec<usize> = (0..network.n_species())
+        .filter(|&i| !network.species[i].in_rate_laws())
+        .collect();
     let mut absent = vec![false; network.n_species()];
-    loop {
+    let first_failure = loop {
         match solve_with(network, stoich, c0, &absent) {
             Err(NoEquilibrium::PurePhaseUsedUp(name)) => match network.species_index(&name) {
                 Some(i) if !absent[i] => absent[i] = true,
-                _ => return Err(NoEquilibrium::PurePhaseUsedUp(name)),
+                _ => break NoEquilibrium::PurePhaseUsedUp(name),
             },
+            Err(why @ (NoEquilibrium::InconsistentCycle { .. } | NoEquilibrium::PurePhaseReforms(_)))
+                if !pure.is_empty() =>
+            {
+                break why
+            }
             other => return other,
         }
+    };
+    if pure.len() <= PHASE_SEARCH_LIMIT {
+        let mut masks: Vec<u32> = (0..1u32 << pure.len()).collect();
+        masks.sort_by_key(|m| (std::cmp::Reverse(m.count_ones()), *m));
+        for mask in masks {
+            let mut absent = vec![false; network.n_species()];
+            for (k, &p) in pure.iter().enumerate() {
+                absent[p] = mask & (1 << k) == 0;
+            }
+            if let Ok(found) = solve_with(network, stoich, c0, &absent) {
+                return Ok(found);
+            }
+        }
     }
+    Err(first_failure)
 }
 
-/// Solves with the pure phases marked in `absent` held at zero.
-fn solve_with(
-    network: &Network,
-    stoich: &Stoichiometry,
-    c0: &[f64],
-    absent: &[bool],
-) -> Result<Equilibrium, NoEquilibrium> {
-    let n = network.n_species();
-    let dissolved = |i: usize| network.species[i].in_rate_laws();
+/// Equilibrium needs every step reversible and rate laws that follow the stoichiometry.
+fn check_mass_action(network: &Network, stoich: &Stoichiometry) -> Result<(), NoEquilibrium> {
     let one_way: Vec<String> = network
         .reactions
         .iter()
@@ -128,19 +172,11 @@ fn solve_with(
     if !one_way.is_empty() {
         return Err(NoEquilibrium::OneWaySteps(one_way));
     }
-    let uses_absent = |j: usize| {
-        let r = &network.reactions[j];
-        r.reactants.iter().chain(&r.products).any(|e| absent[e.0])
-    };
-    let active: Vec<usize> = (0..network.reactions.len())
-        .filter(|&j| network.reactions[j].kf > 0.0 && !uses_absent(j))
-        .collect();
-    for &j in &active {
-        let r = &network.reactions[j];
+    for (j, r) in network.reactions.iter().enumerate().filter(|(_, r)| r.kf > 0.0) {
         let mut order_change: Vec<(usize, f64)> = stoich.columns[j]
             .iter()
             .copied()
-            .filter(|e| dissolved(e.0))
+            .filter(|e| network.species[e.0].in_rate_laws())
             .collect();
         for &(i, a) in &r.forward_orders {
             add(&mut order_change, i, a);
@@ -152,61 +188,50 @@ fn solve_with(
             return Err(NoEquilibrium::NonMassAction(r.equation.clone()));
         }
     }
+    Ok(())
+}
 
-    // Conservation totals, and the laws of the dissolved species alone (pure phases eliminated).
-    let laws = &stoich.conservation;
-    let totals: Vec<f64> = laws.iter().map(|l| l.total(c0)).collect();
-    let pure: Vec<usize> = (0..n).filter(|&i| !dissolved(i) && !absent[i]).collect();
-    let mut eliminate = Echelon::new(laws.len());
-    for &p in &pure {
-        let row: Vec<(usize, f64)> = laws
-            .iter()
-            .enumerate()
-            .filter_map(|(l, law)| law.coefficients.iter().find(|e| e.0 == p).map(|e| (l, e.1)))
-            .collect();
-        eliminate.insert(&row, 0.0);
-    }
-    let mut reduced: Vec<(Vec<(usize, f64)>, f64)> = eliminate
-        .null_space()
-        .iter()
-        .map(|w| {
-            let mut row: Vec<(usize, f64)> = Vec::new();
-            let mut total = 0.0;
-            for &(l, wl) in w {
-                total += wl * totals[l];
-                for &(i, c) in &laws[l].coefficients {
-                    if dissolved(i) {
-                        add(&mut row, i, wl * c);
-                    }
-                }
-            }
-            row.retain(|e| e.1.abs() > 1e-12);
-            (row, total)
-        })
-        .filter(|(row, _)| !row.is_empty())
+/// Solves with the pure phases marked in `absent` held at zero and the others present.
+fn solve_with(
+    network: &Network,
+    stoich: &Stoichiometry,
+    c0: &[f64],
+    absent: &[bool],
+) -> Result<Equilibrium, NoEquilibrium> {
+    let n = network.n_species();
+    let dissolved = |i: usize| network.species[i].in_rate_laws();
+    let uses_absent = |j: usize| stoich.columns[j].iter().any(|e| absent[e.0]);
+    let active: Vec<usize> = (0..network.reactions.len())
+        .filter(|&j| network.reactions[j].kf > 0.0 && !uses_absent(j))
         .collect();
+    let present: Vec<usize> = (0..n).filter(|&i| !dissolved(i) && !absent[i]).collect();
 
-    // Species forced to zero: a one-signed law with a zero total.
+    // Conservation laws with no present pure phase in them, found directly from N (sparse,
+    // independent of the basis shown to the user): what the dissolved species must total.
+    let mut elimination = Echelon::new(n);
+    for column in &stoich.columns {
+        elimination.insert(column, 0.0);
+    }
+    for &p in &present {
+        elimination.insert(&[(p, 1.0)], 0.0);
+    }
     let scale = c0
         .iter()
         .fold(0.0_f64, |m, c| m.max(c.abs()))
         .max(f64::MIN_POSITIVE);
-    let mut zero = vec![false; n];
-    for (row, total) in &reduced {
-        let same_sign = row.iter().all(|e| e.1 > 0.0) || row.iter().all(|e| e.1 < 0.0);
-        let sign = if row[0].1 > 0.0 { 1.0 } else { -1.0 };
-        if same_sign && sign * total <= 1e-14 * scale {
-            if sign * total < -1e-12 * scale {
-                return Err(NoEquilibrium::Infeasible(
-                    "a conservation total is negative where every concentration in it must be positive"
-                        .into(),
-                ));
-            }
-            for e in row {
-                zero[e.0] = true;
-            }
+    let mut reduced: Vec<(Row, f64)> = Vec::new();
+    for law in elimination.null_space() {
+        let total: f64 = law.iter().map(|&(i, v)| v * c0[i]).sum();
+        let row: Row = law.iter().copied().filter(|e| dissolved(e.0) && e.1 != 0.0).collect();
+        if !row.is_empty() {
+            reduced.push((row, total));
+        } else if total.abs() > 1e-12 * scale {
+            // Only used-up phases in a law with a non-zero total: one of them must be there.
+            let p = law.iter().find(|e| absent[e.0]).map_or(0, |e| e.0);
+            return Err(NoEquilibrium::PurePhaseReforms(network.species[p].name.clone()));
         }
     }
+    let zero = forced_zero(n, &reduced, scale)?;
     let positive: Vec<usize> = (0..n).filter(|&i| dissolved(i) && !zero[i]).collect();
     let mut column_of = vec![usize::MAX; n];
     for (k, &i) in positive.iter().enumerate() {
@@ -229,7 +254,7 @@ fn solve_with(
                 )))
             }
         }
-        let row: Vec<(usize, f64)> = stoich.columns[j]
+        let row: Row = stoich.columns[j]
             .iter()
             .filter(|e| column_of[e.0] != usize::MAX)
             .map(|e| (column_of[e.0], e.1))
@@ -247,11 +272,10 @@ fn solve_with(
     }
     let g = k_equations.particular_solution();
 
-    // Dual Newton on λ for the reduced laws over the positive species.
-    let laws_pos: Vec<(Vec<(usize, f64)>, f64)> = reduced
-        .drain(..)
+    let laws_pos: Vec<(Row, f64)> = reduced
+        .into_iter()
         .filter_map(|(row, total)| {
-            let row: Vec<(usize, f64)> = row
+            let row: Row = row
                 .iter()
                 .filter(|e| column_of[e.0] != usize::MAX)
                 .map(|e| (column_of[e.0], e.1))
@@ -259,40 +283,18 @@ fn solve_with(
             (!row.is_empty()).then_some((row, total))
         })
         .collect();
-    let (c_pos, iterations) = maximise_dual(&g, &laws_pos, c0, &positive)?;
+    let start: Vec<f64> = positive.iter().map(|&i| c0[i]).collect();
+    let (c_pos, iterations) = maximise_dual(&g, &laws_pos, &start)?;
 
     let mut concentrations = vec![0.0; n];
     for (k, &i) in positive.iter().enumerate() {
         concentrations[i] = c_pos[k];
     }
-    // Pure-phase amounts from the totals that remain.
-    if !pure.is_empty() {
-        let mut amounts = Echelon::new(n);
-        for (law, total) in laws.iter().zip(&totals) {
-            let rest: f64 = law
-                .coefficients
-                .iter()
-                .filter(|e| dissolved(e.0))
-                .map(|e| e.1 * concentrations[e.0])
-                .sum();
-            let row: Vec<(usize, f64)> = law
-                .coefficients
-                .iter()
-                .copied()
-                .filter(|e| !dissolved(e.0) && !absent[e.0])
-                .collect();
-            amounts.insert(&row, total - rest);
-        }
-        let x = amounts.particular_solution();
-        for &p in &pure {
-            concentrations[p] = x[p];
-            let size = laws.iter().zip(&totals).fold(0.0_f64, |m, (_, t)| m.max(t.abs()));
-            if x[p] < -1e-12 * size.max(scale) {
-                return Err(NoEquilibrium::PurePhaseUsedUp(network.species[p].name.clone()));
-            }
-            concentrations[p] = x[p].max(0.0);
-        }
-    }
+    let laws = &stoich.conservation;
+    let totals: Vec<f64> = laws.iter().map(|l| l.total(c0)).collect();
+    pure_amounts(network, laws, &totals, &present, &mut concentrations, scale)?;
+    check_saturation(network, stoich, absent, &zero, &concentrations)?;
+
     let max_k_residual = k_rows
         .iter()
         .map(|(row, ln_k)| (row.iter().map(|&(k, v)| v * c_pos[k].ln()).sum::<f64>() - ln_k).abs())
@@ -313,7 +315,109 @@ fn solve_with(
         iterations,
         max_k_residual,
         max_total_residual,
+        used_up: (0..n)
+            .filter(|&i| absent[i])
+            .map(|i| network.species[i].name.clone())
+            .collect(),
     })
+}
+
+/// Species that conservation holds at zero: every species of a one-signed law with a zero total.
+fn forced_zero(n: usize, reduced: &[(Row, f64)], scale: f64) -> Result<Vec<bool>, NoEquilibrium> {
+    let mut zero = vec![false; n];
+    for (row, total) in reduced {
+        let same_sign = row.iter().all(|e| e.1 > 0.0) || row.iter().all(|e| e.1 < 0.0);
+        let sign = if row[0].1 > 0.0 { 1.0 } else { -1.0 };
+        if same_sign && sign * total <= 1e-14 * scale {
+            if sign * total < -1e-12 * scale {
+                return Err(NoEquilibrium::Infeasible(
+                    "a conservation total is negative where every concentration in it must be positive"
+                        .into(),
+                ));
+            }
+            for e in row {
+                zero[e.0] = true;
+            }
+        }
+    }
+    Ok(zero)
+}
+
+/// Amounts of the present pure phases from the totals the dissolved species leave over; a
+/// phase needed in a negative amount is used up.
+fn pure_amounts(
+    network: &Network,
+    laws: &[crate::stoich::ConservationLaw],
+    totals: &[f64],
+    present: &[usize],
+    concentrations: &mut [f64],
+    scale: f64,
+) -> Result<(), NoEquilibrium> {
+    if present.is_empty() {
+        return Ok(());
+    }
+    let is_present = |i: usize| present.contains(&i);
+    let mut amounts = Echelon::new(concentrations.len());
+    for (law, total) in laws.iter().zip(totals) {
+        let rest: f64 = law
+            .coefficients
+            .iter()
+            .filter(|e| !is_present(e.0))
+            .map(|e| e.1 * concentrations[e.0])
+            .sum();
+        let row: Row = law.coefficients.iter().copied().filter(|e| is_present(e.0)).collect();
+        amounts.insert(&row, total - rest);
+    }
+    let x = amounts.particular_solution();
+    let size = totals.iter().fold(scale, |m, t| m.max(t.abs()));
+    // The most negative first, so the quick path drops the phase that runs out first.
+    if let Some(&p) = present
+        .iter()
+        .filter(|&&p| x[p] < -1e-12 * size)
+        .min_by(|&&a, &&b| x[a].total_cmp(&x[b]))
+    {
+        return Err(NoEquilibrium::PurePhaseUsedUp(network.species[p].name.clone()));
+    }
+    for &p in present {
+        concentrations[p] = x[p].max(0.0);
+    }
+    Ok(())
+}
+
+/// A used-up phase must not be supersaturated: for a step that forms it from species whose
+/// activities are known, ln a = (ln K − Σ ν ln a_other)/ν must not exceed zero.
+fn check_saturation(
+    network: &Network,
+    stoich: &Stoichiometry,
+    absent: &[bool],
+    zero: &[bool],
+    c: &[f64],
+) -> Result<(), NoEquilibrium> {
+    for p in (0..absent.len()).filter(|&p| absent[p]) {
+        for (j, column) in stoich.columns.iter().enumerate() {
+            let Some(&(_, nu_p)) = column.iter().find(|e| e.0 == p) else {
+                continue;
+            };
+            let known = column.iter().all(|&(i, _)| {
+                i == p || (network.species[i].in_rate_laws() && !zero[i]) || (!network.species[i].in_rate_laws() && !absent[i])
+            });
+            let r = &network.reactions[j];
+            if !known || r.kf <= 0.0 || r.kr <= 0.0 {
+                continue;
+            }
+            let others: f64 = column
+                .iter()
+                .filter(|e| e.0 != p && network.species[e.0].in_rate_laws())
+                .map(|&(i, v)| v * c[i].ln())
+                .sum();
+            let ln_activity = ((r.kf / r.kr).ln() - others) / nu_p;
+            if ln_activity > SATURATION_TOL {
+                return Err(NoEquilibrium::PurePhaseReforms(network.species[p].name.clone()));
+            }
+            break;
+        }
+    }
+    Ok(())
 }
 
 fn add(row: &mut Vec<(usize, f64)>, i: usize, v: f64) {
@@ -323,151 +427,170 @@ fn add(row: &mut Vec<(usize, f64)>, i: usize, v: f64) {
     }
 }
 
-/// Maximises φ(λ) = λ·T − Σ exp(g + Lᵀλ); returns the concentrations exp(g + Lᵀλ).
-fn maximise_dual(
-    g: &[f64],
-    laws: &[(Vec<(usize, f64)>, f64)],
-    c0: &[f64],
-    positive: &[usize],
-) -> Result<(Vec<f64>, usize), NoEquilibrium> {
+/// Maximises φ(λ) = λ·T − Σ exp(g + Lᵀλ) by Newton's method; returns the concentrations
+/// exp(g + Lᵀλ) and the number of iterations.
+///
+/// The iterate is kept as x = ln c itself (the Newton step in λ moves it by Δx = Lᵀδλ), so its
+/// size never grows with λ, and the change of φ along a step is evaluated without cancellation:
+/// φ(t) − φ(0) = t·δλ·r − Σ c (e^(tΔx) − 1 − tΔx), with r = T − Lc. Convergence is judged on
+/// Δx, the relative change of every concentration that Newton still asks for: that test does
+/// not depend on the basis of the laws or on the order of the species. The Hessian L C Lᵀ is
+/// scaled symmetrically to unit diagonal before its LU factorisation.
+fn maximise_dual(g: &[f64], laws: &[(Row, f64)], c0: &[f64]) -> Result<(Vec<f64>, usize), NoEquilibrium> {
     let m = laws.len();
     let n = g.len();
-    let log_c = |lambda: &[f64]| -> Vec<f64> {
-        let mut x = g.to_vec();
-        for (l, (row, _)) in laws.iter().enumerate() {
-            for &(k, v) in row {
-                x[k] += v * lambda[l];
-            }
-        }
-        x
-    };
     if m == 0 {
         return Ok((g.iter().map(|x| x.exp()).collect(), 0));
     }
-    // Start where concentrations are of the size of the initial ones (least squares on ln c).
-    let typical = {
-        let present: Vec<f64> = positive.iter().map(|&i| c0[i]).filter(|&c| c > 0.0).collect();
-        if present.is_empty() {
-            1.0
-        } else {
-            present.iter().map(|c| c.ln()).sum::<f64>() / present.len() as f64
+    // For each species, the laws it is in: the Hessian's sparsity.
+    let mut laws_of: Vec<Vec<(usize, f64)>> = vec![Vec::new(); n];
+    for (l, (row, _)) in laws.iter().enumerate() {
+        for &(k, v) in row {
+            laws_of[k].push((l, v));
         }
-    };
-    let mut normal = nalgebra::DMatrix::<f64>::zeros(m, m);
-    let mut rhs = nalgebra::DVector::<f64>::zeros(m);
-    let dense_rows: Vec<Vec<f64>> = laws
-        .iter()
-        .map(|(row, _)| {
-            let mut d = vec![0.0; n];
-            for &(k, v) in row {
-                d[k] = v;
-            }
-            d
-        })
-        .collect();
-    for a in 0..m {
-        for b in 0..m {
-            normal[(a, b)] = (0..n).map(|k| dense_rows[a][k] * dense_rows[b][k]).sum();
-        }
-        rhs[a] = (0..n).map(|k| dense_rows[a][k] * (typical - g[k])).sum();
     }
-    let mut lambda: Vec<f64> = normal
-        .clone()
-        .lu()
-        .solve(&rhs)
-        .map_or(vec![0.0; m], |v| v.iter().copied().collect());
-    let phi = |lambda: &[f64]| -> f64 {
-        let x = log_c(lambda);
-        let linear: f64 = laws.iter().zip(lambda).map(|((_, t), l)| t * l).sum();
-        linear - x.iter().map(|v| v.exp()).sum::<f64>()
+    let totals: Vec<f64> = laws.iter().map(|(_, t)| *t).collect();
+    let mut x = starting_point(g, laws, &laws_of, c0);
+    let mut previous_step = f64::INFINITY;
+    let mut flat = 0;
+    let residual_of = |c: &[f64]| -> (Vec<f64>, f64) {
+        let mut r = totals.clone();
+        let mut size: Vec<f64> = totals.iter().map(|t| t.abs()).collect();
+        for (k, list) in laws_of.iter().enumerate() {
+            for &(l, v) in list {
+                r[l] -= v * c[k];
+                size[l] += (v * c[k]).abs();
+            }
+        }
+        let worst = r
+            .iter()
+            .zip(&size)
+            .map(|(r, s)| r.abs() / s.max(f64::MIN_POSITIVE))
+            .fold(0.0, f64::max);
+        (r, worst)
     };
     for iteration in 1..=MAX_ITERATIONS {
-        let c: Vec<f64> = log_c(&lambda).iter().map(|x| x.exp()).collect();
-        let mut gradient = nalgebra::DVector::<f64>::zeros(m);
-        let mut sizes = vec![0.0; m];
-        for (l, (row, total)) in laws.iter().enumerate() {
-            let value: f64 = row.iter().map(|&(k, v)| v * c[k]).sum();
-            sizes[l] = row
-                .iter()
-                .map(|&(k, v)| (v * c[k]).abs())
-                .sum::<f64>()
-                .max(total.abs());
-            gradient[l] = total - value;
+        let c: Vec<f64> = x.iter().map(|v| v.exp()).collect();
+        if c.iter().any(|v| !v.is_finite()) {
+            return Err(infeasible());
         }
-        let within = |tol: f64| {
-            gradient
-                .iter()
-                .zip(&sizes)
-                .all(|(g, s)| g.abs() <= tol * s.max(f64::MIN_POSITIVE))
-        };
-        let converged = within(TOTAL_TOL);
-        if converged {
-            return Ok((c, iteration - 1));
-        }
+        let (r, total_residual) = residual_of(&c);
         let mut hessian = nalgebra::DMatrix::<f64>::zeros(m, m);
-        for a in 0..m {
-            for b in a..m {
-                let h: f64 = (0..n).map(|k| dense_rows[a][k] * dense_rows[b][k] * c[k]).sum();
-                hessian[(a, b)] = h;
-                hessian[(b, a)] = h;
+        for (k, list) in laws_of.iter().enumerate() {
+            for &(a, va) in list {
+                for &(b, vb) in list {
+                    hessian[(a, b)] += va * vb * c[k];
+                }
             }
         }
-        let Some(step) = hessian.lu().solve(&gradient) else {
-            return Err(NoEquilibrium::Infeasible(
-                "the conservation totals cannot be met with positive concentrations".into(),
-            ));
+        let d: Vec<f64> = (0..m)
+            .map(|a| 1.0 / hessian[(a, a)].sqrt().max(f64::MIN_POSITIVE))
+            .collect();
+        let scaled = nalgebra::DMatrix::from_fn(m, m, |a, b| d[a] * hessian[(a, b)] * d[b]);
+        let rhs = nalgebra::DVector::from_fn(m, |a, _| d[a] * r[a]);
+        let Some(z) = scaled.full_piv_lu().solve(&rhs) else {
+            return Err(infeasible());
         };
-        // Backtracking: ascend φ; cap the change of any ln c at 5 per step (exp is steep).
-        let largest_log_change = (0..n)
-            .map(|k| (0..m).map(|l| dense_rows[l][k] * step[l]).sum::<f64>().abs())
-            .fold(0.0, f64::max);
-        if largest_log_change < STALL {
-            return if within(STALL_TOTAL_TOL) {
-                Ok((c, iteration))
-            } else {
-                Err(NoEquilibrium::NotConverged {
-                    iterations: iteration,
-                })
-            };
+        let delta_lambda: Vec<f64> = (0..m).map(|a| d[a] * z[a]).collect();
+        let dx: Vec<f64> = laws_of
+            .iter()
+            .map(|list| list.iter().map(|&(l, v)| v * delta_lambda[l]).sum())
+            .collect();
+        let step = dx.iter().fold(0.0_f64, |s, v| s.max(v.abs()));
+        if !step.is_finite() {
+            return Err(infeasible());
         }
-        let mut t = if largest_log_change > 5.0 {
-            5.0 / largest_log_change
+        if step <= STEP_TOL {
+            x.iter_mut().zip(&dx).for_each(|(x, d)| *x += d);
+            return Ok((x.iter().map(|v| v.exp()).collect(), iteration));
+        }
+        // At the rounding floor the step stops shrinking: accept once it has stalled there.
+        flat = if step < FLOOR_TOL && step > 0.5 * previous_step {
+            flat + 1
         } else {
-            1.0
+            0
         };
-        let current = phi(&lambda);
-        let slope: f64 = gradient.dot(&step);
+        if flat >= 3 {
+            return Ok((c, iteration));
+        }
+        previous_step = step;
+        let slope: f64 = delta_lambda.iter().zip(&r).map(|(a, b)| a * b).sum();
+        let not_converged = || NoEquilibrium::NotConverged {
+            iterations: iteration,
+            total_residual,
+            last_step: step,
+        };
+        if slope.is_nan() || slope <= 0.0 {
+            return if step < FLOOR_TOL { Ok((c, iteration)) } else { Err(not_converged()) };
+        }
+        // Backtracking (Armijo) on φ; ln c moves by at most 5 per step (exp is steep).
+        let mut t = (5.0 / step).min(1.0);
         loop {
-            let trial: Vec<f64> = lambda.iter().zip(step.iter()).map(|(l, s)| l + t * s).collect();
-            let value = phi(&trial);
-            if value.is_finite() && value >= current + 1e-4 * t * slope {
-                lambda = trial;
+            let curvature: f64 = c.iter().zip(&dx).map(|(c, d)| c * exp_remainder(t * d)).sum();
+            let gain = t * slope - curvature;
+            if gain >= 1e-4 * t * slope {
                 break;
             }
             t *= 0.5;
-            if t < 1e-12 {
-                // No further ascent possible at double precision: accept if already close.
-                let close = gradient
-                    .iter()
-                    .zip(laws)
-                    .all(|(gr, (_, total))| gr.abs() <= 1e-9 * total.abs().max(1e-300));
-                if close {
-                    return Ok((c, iteration));
-                }
-                return Err(NoEquilibrium::NotConverged {
-                    iterations: iteration,
-                });
+            if t < 1e-10 {
+                return Err(not_converged());
             }
         }
-        if lambda.iter().any(|l| !l.is_finite() || l.abs() > 1e4) {
-            return Err(NoEquilibrium::Infeasible(
-                "the conservation totals cannot be met with positive concentrations".into(),
-            ));
+        x.iter_mut().zip(&dx).for_each(|(x, d)| *x += t * d);
+        if x.iter().any(|v| *v > 700.0) {
+            return Err(infeasible());
         }
     }
+    let c: Vec<f64> = x.iter().map(|v| v.exp()).collect();
+    let (_, total_residual) = residual_of(&c);
     Err(NoEquilibrium::NotConverged {
         iterations: MAX_ITERATIONS,
+        total_residual,
+        last_step: previous_step,
     })
+}
+
+fn infeasible() -> NoEquilibrium {
+    NoEquilibrium::Infeasible("the conservation totals cannot be met with positive concentrations".into())
+}
+
+/// e^u − 1 − u without cancellation for small u.
+fn exp_remainder(u: f64) -> f64 {
+    if u.abs() < 1e-3 {
+        u * u * (0.5 + u * (1.0 / 6.0 + u / 24.0))
+    } else {
+        u.exp_m1() - u
+    }
+}
+
+/// A start where concentrations are of the size of the initial ones: x = g + Lᵀλ with λ the
+/// least-squares fit of x to the mean log of the initial concentrations.
+fn starting_point(g: &[f64], laws: &[(Row, f64)], laws_of: &[Vec<(usize, f64)>], c0: &[f64]) -> Vec<f64> {
+    let m = laws.len();
+    let present: Vec<f64> = c0.iter().copied().filter(|&c| c > 0.0).collect();
+    let typical = if present.is_empty() {
+        0.0
+    } else {
+        present.iter().map(|c| c.ln()).sum::<f64>() / present.len() as f64
+    };
+    let mut normal = nalgebra::DMatrix::<f64>::zeros(m, m);
+    let mut rhs = nalgebra::DVector::<f64>::zeros(m);
+    for (k, list) in laws_of.iter().enumerate() {
+        for &(a, va) in list {
+            rhs[a] += va * (typical - g[k]);
+            for &(b, vb) in list {
+                normal[(a, b)] += va * vb;
+            }
+        }
+    }
+    let lambda = normal.full_piv_lu().solve(&rhs).unwrap_or_else(|| nalgebra::DVector::zeros(m));
+    let mut x = g.to_vec();
+    for (l, (row, _)) in laws.iter().enumerate() {
+        for &(k, v) in row {
+            x[k] += v * lambda[l];
+        }
+    }
+    x
 }
 
 /// Extents of reaction ξ (mol/L) with c − c0 = N ξ. Returns None when the change is not a

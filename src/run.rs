@@ -140,11 +140,20 @@ pub fn run(network: &Network, settings: &RunSettings) -> Result<RunResult, Error
         .iter()
         .map(|s| s.atol.unwrap_or(settings.atol))
         .collect();
+    // The equilibrium is solved first: it tells the integration where equilibrium is, and its
+    // slowest relaxation time how long the approach takes.
+    let solved = equilibrium::solve(network, &stoichiometry);
+    let relaxation = match &solved {
+        Ok(exact) => relaxation::modes(network, &exact.concentrations),
+        Err(_) => Err("needs an equilibrium (see the equilibrium line)".to_string()),
+    };
     let options = Options {
         rtol: settings.rtol,
         atol: atol.clone(),
         until: settings.until,
         force_dense: settings.force_dense,
+        target: solved.as_ref().ok().map(|e| e.concentrations.clone()),
+        max_time: horizon(&relaxation),
         ..Options::new(network.n_species())
     };
     let solution = integrate::integrate(
@@ -177,14 +186,9 @@ pub fn run(network: &Network, settings: &RunSettings) -> Result<RunResult, Error
             .collect(),
     };
     let drift = analysis::conservation_drift(trajectory, &stoichiometry.conservation);
-    let solved = equilibrium::solve(network, &stoichiometry);
     let (disagreement, disagrees) = match (&equilibrium, &solved) {
         (Some(integrated), Ok(exact)) => compare(integrated, &exact.concentrations, &atol, settings.rtol),
         _ => (None, false),
-    };
-    let relaxation = match &solved {
-        Ok(exact) => relaxation::modes(network, &exact.concentrations),
-        Err(_) => Err("needs an equilibrium (see the equilibrium line)".to_string()),
     };
     let reference = solved
         .as_ref()
@@ -228,6 +232,25 @@ pub fn run(network: &Network, settings: &RunSettings) -> Result<RunResult, Error
         progress,
         audit: audit::audit(network, audit::DEFAULT_TOL_KJ, audit::Adjust::Kr),
     })
+}
+
+/// How many slowest relaxation times the integration allows before it gives up: e^−30 ≈ 1e-13
+/// of the initial distance is left by then.
+const HORIZON_TAUS: f64 = 30.0;
+/// The automatic horizon never goes beyond this (about 3e8 years); `--until` can.
+pub const LONGEST_HORIZON: f64 = 1e16;
+
+/// The time after which the integration stops looking for equilibrium: the default 1e12 s, or
+/// 30 slowest relaxation times when that is longer (up to 1e16 s).
+fn horizon(relaxation: &Result<Vec<Mode>, String>) -> f64 {
+    let slowest = relaxation
+        .as_ref()
+        .ok()
+        .and_then(|modes| modes.first())
+        .map_or(0.0, |m| m.tau_seconds);
+    (HORIZON_TAUS * slowest)
+        .min(LONGEST_HORIZON)
+        .max(integrate::DEFAULT_MAX_TIME)
 }
 
 /// The integration tolerance of each species at a composition: what counts as noise.

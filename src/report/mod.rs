@@ -200,6 +200,12 @@ pub fn terminal_time(seconds: f64, unit: crate::units::TimeUnit) -> String {
     format!("{} {}", significant(seconds / unit.seconds()), unit.symbol())
 }
 
+/// A fraction as a percentage without trailing zeros: 0.001 → "0.1".
+pub fn trim_percent(fraction: f64) -> String {
+    let s = format!("{:.4}", fraction * 100.0);
+    s.trim_end_matches('0').trim_end_matches('.').to_string()
+}
+
 pub fn format_duration(seconds: f64) -> String {
     let friendly = if seconds >= 86_400.0 * 2.0 {
         format!(" ({:.2} d)", seconds / 86_400.0)

@@ -4,11 +4,12 @@ use serde::Serialize;
 use serde_json::Map;
 
 use crate::analysis::Settling;
+use crate::equilibrium::NoEquilibrium;
 use crate::integrate::{Stats, StopReason};
 use crate::relaxation::Mode;
 use crate::run::RunResult;
 
-use super::{format_duration, CAUTIONS};
+use super::{format_duration, trim_percent, CAUTIONS};
 
 #[derive(Debug, Serialize)]
 pub struct Summary {
@@ -126,12 +127,29 @@ pub fn stop_description(result: &RunResult) -> String {
         (StopReason::Equilibrium, Some(t)) => format!("equilibrium detected at {}", format_duration(t)),
         (StopReason::ReachedTime, Some(t)) => format!("reached the requested time; equilibrium detected at {}", format_duration(t)),
         (StopReason::ReachedTime, None) => "reached the requested time; equilibrium not detected".into(),
-        (StopReason::MaxTime, _) => format!(
-            "no equilibrium detected by {} (the network may have no equilibrium: a one-way step, a feed or a sink)",
-            format_duration(result.solution.trajectory.end_time())
-        ),
+        (StopReason::MaxTime, _) => horizon_description(result),
         (StopReason::MaxSteps, _) => format!("step budget used up at {}", format_duration(result.solution.trajectory.end_time())),
         (StopReason::Equilibrium, None) => "equilibrium detected".into(),
+    }
+}
+
+/// Why the integration ended without equilibrium, with the figures that say what would reach it.
+fn horizon_description(result: &RunResult) -> String {
+    let end = format_duration(result.solution.trajectory.end_time());
+    let slowest = result.relaxation.as_ref().ok().and_then(|m| m.first());
+    let tightest = result.settings.tolerances.iter().copied().fold(f64::INFINITY, f64::min);
+    match (&result.solved, slowest) {
+        (Ok(_), Some(mode)) if tightest.is_finite() => format!(
+            "equilibrium not reached by {end}: slowest relaxation time {}, so {}% needs about {}; use --until",
+            format_duration(mode.tau_seconds),
+            trim_percent(tightest),
+            format_duration(mode.tau_seconds * (1.0 / tightest).ln())
+        ),
+        (Ok(_), _) => format!("equilibrium not reached by {end}; use --until to integrate longer"),
+        (Err(NoEquilibrium::OneWaySteps(_)), _) => format!(
+            "no equilibrium by {end}: the network has one-way steps (a feed or a sink among them, perhaps)"
+        ),
+        (Err(why), _) => format!("no steady state detected by {end} ({why})"),
     }
 }
 

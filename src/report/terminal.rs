@@ -6,7 +6,7 @@ use std::path::PathBuf;
 use crate::run::RunResult;
 
 use super::summary::{relaxation_estimates, stop_description};
-use super::{format_duration, significant, with_digits, CAUTIONS};
+use super::{format_duration, significant, trim_percent, with_digits, CAUTIONS};
 
 /// Relaxation modes listed on the terminal (all of them are in summary.json).
 const MODES_SHOWN: usize = 5;
@@ -237,9 +237,4 @@ fn write_relaxation(out: &mut String, result: &RunResult) {
             let _ = writeln!(out, "  relaxation analysis: {why}");
         }
     }
-}
-
-fn trim_percent(fraction: f64) -> String {
-    let s = format!("{:.4}", fraction * 100.0);
-    s.trim_end_matches('0').trim_end_matches('.').to_string()
 }
