@@ -116,26 +116,21 @@ fn settle_time(trajectory: &Trajectory, i: usize, target: f64, band: f64) -> Opt
     Some(hi)
 }
 
-/// Largest relative drift of each conservation total along the trajectory: |lᵀc(t) − lᵀc(0)|
-/// divided by Σ|l_i c_i(0)| (or by its largest value along the way when that is zero).
+/// Largest relative drift of each conservation total along the trajectory, judged at each time
+/// against the species in the law at that time: |lᵀc(t) − lᵀc(0)| / Σ|l_i c_i(t)|. A law whose
+/// species are all traces is measured against those traces, not against the largest total.
 pub fn conservation_drift(trajectory: &Trajectory, laws: &[ConservationLaw]) -> Vec<f64> {
     laws.iter()
         .map(|law| {
             let start = law.total(&trajectory.states[0]);
-            let mut size = law.magnitude(&trajectory.states[0]);
-            if size == 0.0 {
-                size = trajectory
-                    .states
-                    .iter()
-                    .fold(0.0_f64, |m, s| m.max(law.magnitude(s)));
-            }
-            if size == 0.0 {
-                return 0.0;
-            }
-            trajectory
-                .states
-                .iter()
-                .fold(0.0_f64, |m, s| m.max((law.total(s) - start).abs() / size))
+            trajectory.states.iter().fold(0.0_f64, |worst, s| {
+                let size = law.magnitude(s).max(start.abs());
+                if size == 0.0 {
+                    worst
+                } else {
+                    worst.max((law.total(s) - start).abs() / size)
+                }
+            })
         })
         .collect()
 }

@@ -231,7 +231,11 @@ fn solve_with(
             return Err(NoEquilibrium::PurePhaseReforms(network.species[p].name.clone()));
         }
     }
-    let zero = forced_zero(n, &reduced, scale)?;
+    let zero: Vec<bool> = reachable(network, c0)
+        .iter()
+        .enumerate()
+        .map(|(i, r)| dissolved(i) && !r)
+        .collect();
     let positive: Vec<usize> = (0..n).filter(|&i| dissolved(i) && !zero[i]).collect();
     let mut column_of = vec![usize::MAX; n];
     for (k, &i) in positive.iter().enumerate() {
@@ -272,17 +276,23 @@ fn solve_with(
     }
     let g = k_equations.particular_solution();
 
-    let laws_pos: Vec<(Row, f64)> = reduced
-        .into_iter()
-        .filter_map(|(row, total)| {
-            let row: Row = row
-                .iter()
-                .filter(|e| column_of[e.0] != usize::MAX)
-                .map(|e| (column_of[e.0], e.1))
-                .collect();
-            (!row.is_empty()).then_some((row, total))
-        })
-        .collect();
+    // The laws over the positive species; with the zero species left out some coincide, so
+    // only independent ones are kept (a dependent one must agree on its total).
+    let mut independent = Echelon::new(positive.len());
+    let mut laws_pos: Vec<(Row, f64)> = Vec::new();
+    for (row, total) in reduced {
+        let row: Row = row
+            .iter()
+            .filter(|e| column_of[e.0] != usize::MAX)
+            .map(|e| (column_of[e.0], e.1))
+            .collect();
+        let size = row.iter().fold(total.abs(), |m, e| m.max(e.1.abs() * scale));
+        match independent.insert(&row, total) {
+            Insert::Independent => laws_pos.push((row, total)),
+            Insert::Dependent { residual } if residual.abs() > 1e-9 * size => return Err(infeasible()),
+            Insert::Dependent { .. } => {}
+        }
+    }
     let start: Vec<f64> = positive.iter().map(|&i| c0[i]).collect();
     let (c_pos, iterations) = maximise_dual(&g, &laws_pos, &start)?;
 
@@ -322,25 +332,35 @@ fn solve_with(
     })
 }
 
-/// Species that conservation holds at zero: every species of a one-signed law with a zero total.
-fn forced_zero(n: usize, reduced: &[(Row, f64)], scale: f64) -> Result<Vec<bool>, NoEquilibrium> {
-    let mut zero = vec![false; n];
-    for (row, total) in reduced {
-        let same_sign = row.iter().all(|e| e.1 > 0.0) || row.iter().all(|e| e.1 < 0.0);
-        let sign = if row[0].1 > 0.0 { 1.0 } else { -1.0 };
-        if same_sign && sign * total <= 1e-14 * scale {
-            if sign * total < -1e-12 * scale {
-                return Err(NoEquilibrium::Infeasible(
-                    "a conservation total is negative where every concentration in it must be positive"
-                        .into(),
-                ));
-            }
-            for e in row {
-                zero[e.0] = true;
+/// Species that can ever be present: those there at the start and those a step can make from
+/// species that can be present (its reactants, or for the reverse direction its products, all
+/// present). Mass action keeps every other species at exactly zero, so they are zero at
+/// equilibrium too; deciding this from the network rather than from a basis of laws does not
+/// depend on which basis elimination happens to produce.
+fn reachable(network: &Network, c0: &[f64]) -> Vec<bool> {
+    let mut present: Vec<bool> = c0.iter().map(|&c| c > 0.0).collect();
+    loop {
+        let mut changed = false;
+        for r in &network.reactions {
+            let directions = [
+                (r.kf > 0.0, &r.reactants, &r.products),
+                (r.reversible && r.kr > 0.0, &r.products, &r.reactants),
+            ];
+            for (runs, from, to) in directions {
+                if runs && from.iter().all(|e| present[e.0]) {
+                    for e in to.iter() {
+                        if !present[e.0] {
+                            present[e.0] = true;
+                            changed = true;
+                        }
+                    }
+                }
             }
         }
+        if !changed {
+            return present;
+        }
     }
-    Ok(zero)
 }
 
 /// Amounts of the present pure phases from the totals the dissolved species leave over; a

@@ -158,7 +158,7 @@ pub fn run(network: &Network, settings: &RunSettings) -> Result<RunResult, Error
     };
     let solution = integrate::integrate(
         &model,
-        &stoichiometry.conservation,
+        &stoichiometry.local_conservation,
         &network.initial_state(),
         &options,
     )?;
@@ -170,7 +170,18 @@ pub fn run(network: &Network, settings: &RunSettings) -> Result<RunResult, Error
     let final_state = trajectory.state_at(final_time);
     let equilibrium = solution.equilibrium_at.map(|_| trajectory.last_state().to_vec());
     let names: Vec<String> = network.species.iter().map(|s| s.name.clone()).collect();
-    let settling = match &equilibrium {
+    let (disagreement, disagrees) = match (&equilibrium, &solved) {
+        (Some(integrated), Ok(exact)) => compare(integrated, &exact.concentrations, &atol, settings.rtol),
+        _ => (None, false),
+    };
+    // Times to equilibrium are measured against the solved equilibrium when the routes agree
+    // (it is exact), else against the integrated end state.
+    let settle_reference = match (&equilibrium, &solved) {
+        (Some(_), Ok(exact)) if !disagrees => Some(&exact.concentrations),
+        (Some(integrated), _) => Some(integrated),
+        (None, _) => None,
+    };
+    let settling = match settle_reference {
         Some(eq) => {
             let noise = noise_levels(eq, &atol, settings.rtol);
             analysis::time_to_equilibrium(trajectory, eq, &noise, &settings.tolerances, &names)
@@ -186,10 +197,6 @@ pub fn run(network: &Network, settings: &RunSettings) -> Result<RunResult, Error
             .collect(),
     };
     let drift = analysis::conservation_drift(trajectory, &stoichiometry.conservation);
-    let (disagreement, disagrees) = match (&equilibrium, &solved) {
-        (Some(integrated), Ok(exact)) => compare(integrated, &exact.concentrations, &atol, settings.rtol),
-        _ => (None, false),
-    };
     let reference = solved
         .as_ref()
         .ok()
@@ -234,14 +241,16 @@ pub fn run(network: &Network, settings: &RunSettings) -> Result<RunResult, Error
     })
 }
 
-/// How many slowest relaxation times the integration allows before it gives up: e^−30 ≈ 1e-13
-/// of the initial distance is left by then.
-const HORIZON_TAUS: f64 = 30.0;
+/// How many slowest relaxation times the integration allows before it gives up. The linearised
+/// estimate can be far too short when the approach starts far from equilibrium (seeded random
+/// networks in tests/robustness.rs need up to about 50 τ for 0.1 %); implicit steps grow
+/// geometrically, so a generous horizon costs only a few steps.
+const HORIZON_TAUS: f64 = 1000.0;
 /// The automatic horizon never goes beyond this (about 3e8 years); `--until` can.
 pub const LONGEST_HORIZON: f64 = 1e16;
 
 /// The time after which the integration stops looking for equilibrium: the default 1e12 s, or
-/// 30 slowest relaxation times when that is longer (up to 1e16 s).
+/// 1000 slowest relaxation times when that is longer (up to 1e16 s).
 fn horizon(relaxation: &Result<Vec<Mode>, String>) -> f64 {
     let slowest = relaxation
         .as_ref()

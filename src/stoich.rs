@@ -62,7 +62,12 @@ pub struct Stoichiometry {
     pub n_species: usize,
     /// Net coefficients of each reaction: (species index, products minus reactants), non-zero only.
     pub columns: Vec<Vec<(usize, f64)>>,
+    /// A basis of the conservation laws written as totals where possible (for people).
     pub conservation: Vec<ConservationLaw>,
+    /// The same span as the sparse basis elimination yields, before laws are combined into
+    /// totals: each law touches as few species as it can, so a law among trace species is not
+    /// mixed with abundant ones (for holding totals to rounding during integration).
+    pub local_conservation: Vec<ConservationLaw>,
     /// Rank of N: the number of independent reactions.
     pub rank: usize,
 }
@@ -75,11 +80,19 @@ impl Stoichiometry {
             .iter()
             .map(|r| net_change(&r.reactants, &r.products))
             .collect();
-        let (conservation, rank) = left_null_space(n_species, &columns);
+        let (local, rank) = left_null_space(n_species, &columns);
+        let mut polished: Vec<Row> = local.clone();
+        fewer_negatives(&mut polished);
+        let as_laws = |rows: Vec<Row>| -> Vec<ConservationLaw> {
+            rows.into_iter()
+                .map(|coefficients| ConservationLaw { coefficients })
+                .collect()
+        };
         Stoichiometry {
             n_species,
             columns,
-            conservation,
+            conservation: as_laws(polished),
+            local_conservation: as_laws(local),
             rank,
         }
     }
@@ -205,19 +218,15 @@ impl Echelon {
     }
 }
 
-/// Basis of {l : lᵀN = 0} from the rows of Nᵀ (one per reaction). Returns the basis and rank N.
-fn left_null_space(n_species: usize, columns: &[Row]) -> (Vec<ConservationLaw>, usize) {
+/// Basis of {l : lᵀN = 0} from the rows of Nᵀ (one per reaction), each law scaled to small
+/// whole numbers. Returns the basis and rank N.
+fn left_null_space(n_species: usize, columns: &[Row]) -> (Vec<Row>, usize) {
     let mut echelon = Echelon::new(n_species);
     for column in columns {
         echelon.insert(column, 0.0);
     }
-    let mut rows: Vec<Row> = echelon.null_space().into_iter().map(tidy).collect();
-    fewer_negatives(&mut rows);
-    let laws = rows
-        .into_iter()
-        .map(|coefficients| ConservationLaw { coefficients })
-        .collect();
-    (laws, echelon.rank())
+    let rows: Vec<Row> = echelon.null_space().into_iter().map(tidy).collect();
+    (rows, echelon.rank())
 }
 
 /// Most bases this size are worth polishing; beyond it the quadratic search is skipped.
@@ -316,6 +325,13 @@ fn tidy(mut coefficients: Row) -> Row {
 mod tests {
     use super::*;
 
+    fn polished(n: usize, columns: &[Row]) -> (Vec<ConservationLaw>, usize) {
+        let (mut rows, rank) = left_null_space(n, columns);
+        fewer_negatives(&mut rows);
+        let laws = rows.into_iter().map(|coefficients| ConservationLaw { coefficients }).collect();
+        (laws, rank)
+    }
+
     /// Checks lᵀN = 0 for every law (by recomposition; tolerance 1e-12, rounding only).
     fn assert_laws_annihilate(columns: &[Row], laws: &[ConservationLaw]) {
         for law in laws {
@@ -333,7 +349,7 @@ mod tests {
     fn a_plus_b_to_c_conserves_two_totals() {
         // A + B <=> C: A + C and B + C are conserved (common practice; by inspection).
         let columns = vec![net_change(&[(0, 1.0), (1, 1.0)], &[(2, 1.0)])];
-        let (laws, rank) = left_null_space(3, &columns);
+        let (laws, rank) = polished(3, &columns);
         assert_eq!(rank, 1);
         assert_eq!(laws.len(), 2);
         assert_laws_annihilate(&columns, &laws);
@@ -347,7 +363,7 @@ mod tests {
             net_change(&[(1, 1.0), (2, 1.0)], &[(0, 1.0), (2, 1.0)]),
             net_change(&[(1, 2.0)], &[(1, 1.0), (2, 1.0)]),
         ];
-        let (laws, rank) = left_null_space(3, &columns);
+        let (laws, rank) = polished(3, &columns);
         assert_eq!(rank, 2);
         assert_eq!(laws.len(), 1);
         assert_eq!(laws[0].coefficients, vec![(0, 1.0), (1, 1.0), (2, 1.0)]);
@@ -356,7 +372,7 @@ mod tests {
     #[test]
     fn feed_breaks_conservation() {
         let columns = vec![net_change(&[], &[(0, 1.0)]), net_change(&[(0, 1.0)], &[(1, 1.0)])];
-        let (laws, rank) = left_null_space(2, &columns);
+        let (laws, rank) = polished(2, &columns);
         assert_eq!((laws.len(), rank), (0, 2));
     }
 
@@ -365,7 +381,7 @@ mod tests {
         // acid + alcohol <=> ester + water: the basis can be written without minus signs, e.g.
         // acid + ester, alcohol + ester, acid + water (common practice: moiety totals).
         let columns = vec![net_change(&[(0, 1.0), (1, 1.0)], &[(2, 1.0), (3, 1.0)])];
-        let (laws, _) = left_null_space(4, &columns);
+        let (laws, _) = polished(4, &columns);
         assert_eq!(laws.len(), 3);
         assert_laws_annihilate(&columns, &laws);
         for law in &laws {
@@ -377,7 +393,7 @@ mod tests {
     fn dimerisation_weights_monomer_twice() {
         // 2 A <=> B: A + 2 B is conserved.
         let columns = vec![net_change(&[(0, 2.0)], &[(1, 1.0)])];
-        let (laws, _) = left_null_space(2, &columns);
+        let (laws, _) = polished(2, &columns);
         assert_eq!(laws[0].coefficients, vec![(0, 1.0), (1, 2.0)]);
     }
 }

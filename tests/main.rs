@@ -13,3 +13,4 @@ mod input_errors;
 mod model;
 mod report;
 mod robertson;
+mod robustness;

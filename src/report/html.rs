@@ -5,7 +5,7 @@ use std::fmt::Write;
 
 use crate::run::RunResult;
 
-use super::summary::{relaxation_estimates, stop_description};
+use super::summary::{nonlinear_approach_note, relaxation_estimates, stop_description};
 use super::{format_duration, with_digits, CAUTIONS};
 
 /// Everything the report needs beside the run itself.
@@ -198,6 +198,9 @@ pub fn render(result: &RunResult, inputs: &ReportInputs<'_>) -> String {
         );
     }
     let _ = writeln!(h, "</table>");
+    if let Some(note) = nonlinear_approach_note(result) {
+        let _ = writeln!(h, "<p class=\"note\">Note: {}</p>", escape(&note));
+    }
     if result.settings.until.is_some() {
         let parts: Vec<String> = names
             .iter()

@@ -45,6 +45,8 @@ pub struct Summary {
     pub relaxation_note: Option<String>,
     /// τ_slowest · ln(1/tol): the linearised estimate of time to equilibrium at each tolerance.
     pub relaxation_estimates: Vec<Estimate>,
+    /// Set when an estimate differs from the integrated time by more than a factor 3.
+    pub relaxation_estimate_note: Option<String>,
     /// Per species, the fraction of its total change completed at `final_time`.
     pub progress_at_final_time: Map<String, serde_json::Value>,
     /// Partial pressures of the gases at `final_time`, bar (closed rigid vessel), when there are gases.
@@ -153,6 +155,31 @@ fn horizon_description(result: &RunResult) -> String {
     }
 }
 
+/// Estimates from the slowest relaxation time beyond this factor of the integrated time mean
+/// the approach is not governed by the linearised equations.
+const LINEAR_REGIME_FACTOR: f64 = 3.0;
+
+/// A warning when τ_slowest·ln(1/tol) and the integrated time to equilibrium differ by more than
+/// a factor 3 at some tolerance: the approach is then not in the linear regime and the estimate
+/// must not be used as a hold time.
+pub fn nonlinear_approach_note(result: &RunResult) -> Option<String> {
+    let estimates = relaxation_estimates(result);
+    result.settling.iter().find_map(|s| {
+        let t = s.seconds.filter(|t| *t > 0.0)?;
+        let e = estimates.iter().find(|e| e.tolerance == s.tolerance)?.seconds;
+        let ratio = e / t;
+        (!(1.0 / LINEAR_REGIME_FACTOR..=LINEAR_REGIME_FACTOR).contains(&ratio)).then(|| {
+            format!(
+                "the approach is not in the linear regime: at {}% the estimate τ·ln(1/tol) = {} is {} the integrated {}; use the integrated times",
+                trim_percent(s.tolerance),
+                format_duration(e),
+                if ratio > 1.0 { format!("{ratio:.1} times") } else { format!("1/{:.1} of", 1.0 / ratio) },
+                format_duration(t)
+            )
+        })
+    })
+}
+
 /// τ_slowest · ln(1/tol) for each tolerance (empty without relaxation modes).
 pub fn relaxation_estimates(result: &RunResult) -> Vec<Estimate> {
     let Some(slowest) = result.relaxation.as_ref().ok().and_then(|m| m.first()) else {
@@ -227,6 +254,7 @@ impl Summary {
             relaxation: result.relaxation.clone().unwrap_or_default(),
             relaxation_note: result.relaxation.as_ref().err().cloned(),
             relaxation_estimates: relaxation_estimates(result),
+            relaxation_estimate_note: nonlinear_approach_note(result),
             progress_at_final_time: names
                 .iter()
                 .zip(&result.progress)

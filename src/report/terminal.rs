@@ -5,7 +5,7 @@ use std::path::PathBuf;
 
 use crate::run::RunResult;
 
-use super::summary::{relaxation_estimates, stop_description};
+use super::summary::{nonlinear_approach_note, relaxation_estimates, stop_description};
 use super::{format_duration, significant, trim_percent, with_digits, CAUTIONS};
 
 /// Relaxation modes listed on the terminal (all of them are in summary.json).
@@ -199,6 +199,9 @@ fn write_settling(out: &mut String, result: &RunResult) {
             });
         let percent = format!("{}%", trim_percent(s.tolerance));
         let _ = writeln!(out, "    within {percent:>7}: {when}{estimate}");
+    }
+    if let Some(note) = nonlinear_approach_note(result) {
+        let _ = writeln!(out, "    note: {note}");
     }
 }
 
