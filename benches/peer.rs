@@ -93,7 +93,13 @@ fn main() {
             ..Options::new(network.n_species())
         };
         let started = Instant::now();
-        let solution = integrate(&model, &stoich.local_conservation, &network.initial_state(), &options).unwrap();
+        let solution = integrate(
+            &model,
+            &stoich.local_conservation,
+            &network.initial_state(),
+            &options,
+        )
+        .unwrap();
         let seconds = started.elapsed().as_secs_f64();
         let reference = dir.join(format!("{name}.ref.json"));
         let err = std::fs::read_to_string(&reference)

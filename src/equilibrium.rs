@@ -49,10 +49,7 @@ pub enum NoEquilibrium {
     /// A rate law whose orders differ from the stoichiometry has no equilibrium constant.
     NonMassAction(String),
     /// The K values contradict each other around a cycle (ln of the mismatch given).
-    InconsistentCycle {
-        step: String,
-        mismatch: f64,
-    },
+    InconsistentCycle { step: String, mismatch: f64 },
     /// The conservation totals cannot be met with non-negative concentrations.
     Infeasible(String),
     /// A pure solid or liquid would be needed in a negative amount.
@@ -222,7 +219,11 @@ fn solve_with(
     let mut reduced: Vec<(Row, f64)> = Vec::new();
     for law in elimination.null_space() {
         let total: f64 = law.iter().map(|&(i, v)| v * c0[i]).sum();
-        let row: Row = law.iter().copied().filter(|e| dissolved(e.0) && e.1 != 0.0).collect();
+        let row: Row = law
+            .iter()
+            .copied()
+            .filter(|e| dissolved(e.0) && e.1 != 0.0)
+            .collect();
         if !row.is_empty() {
             reduced.push((row, total));
         } else if total.abs() > 1e-12 * scale {
@@ -385,7 +386,12 @@ fn pure_amounts(
             .filter(|e| !is_present(e.0))
             .map(|e| e.1 * concentrations[e.0])
             .sum();
-        let row: Row = law.coefficients.iter().copied().filter(|e| is_present(e.0)).collect();
+        let row: Row = law
+            .coefficients
+            .iter()
+            .copied()
+            .filter(|e| is_present(e.0))
+            .collect();
         amounts.insert(&row, total - rest);
     }
     let x = amounts.particular_solution();
@@ -419,7 +425,9 @@ fn check_saturation(
                 continue;
             };
             let known = column.iter().all(|&(i, _)| {
-                i == p || (network.species[i].in_rate_laws() && !zero[i]) || (!network.species[i].in_rate_laws() && !absent[i])
+                i == p
+                    || (network.species[i].in_rate_laws() && !zero[i])
+                    || (!network.species[i].in_rate_laws() && !absent[i])
             });
             let r = &network.reactions[j];
             if !known || r.kf <= 0.0 || r.kr <= 0.0 {
@@ -541,7 +549,11 @@ fn maximise_dual(g: &[f64], laws: &[(Row, f64)], c0: &[f64]) -> Result<(Vec<f64>
             last_step: step,
         };
         if slope.is_nan() || slope <= 0.0 {
-            return if step < FLOOR_TOL { Ok((c, iteration)) } else { Err(not_converged()) };
+            return if step < FLOOR_TOL {
+                Ok((c, iteration))
+            } else {
+                Err(not_converged())
+            };
         }
         // Backtracking (Armijo) on φ; ln c moves by at most 5 per step (exp is steep).
         let mut t = (5.0 / step).min(1.0);
@@ -603,7 +615,10 @@ fn starting_point(g: &[f64], laws: &[(Row, f64)], laws_of: &[Vec<(usize, f64)>],
             }
         }
     }
-    let lambda = normal.full_piv_lu().solve(&rhs).unwrap_or_else(|| nalgebra::DVector::zeros(m));
+    let lambda = normal
+        .full_piv_lu()
+        .solve(&rhs)
+        .unwrap_or_else(|| nalgebra::DVector::zeros(m));
     let mut x = g.to_vec();
     for (l, (row, _)) in laws.iter().enumerate() {
         for &(k, v) in row {

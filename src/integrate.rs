@@ -308,9 +308,10 @@ pub fn integrate(
             // At the horizon every mode has decayed (the caller sets it to many slowest
             // relaxation times): a state within the rounding floor of the solved equilibrium
             // has reached it, however slowly the last tolerances were approached.
-            let at_floor = options.target.as_ref().is_some_and(|c| {
-                (0..n).all(|i| (y[i] - c[i]).abs() <= HORIZON_BAND * scale(c, c, i))
-            });
+            let at_floor = options
+                .target
+                .as_ref()
+                .is_some_and(|c| (0..n).all(|i| (y[i] - c[i]).abs() <= HORIZON_BAND * scale(c, c, i)));
             if options.to_equilibrium && equilibrium_at.is_none() && at_floor {
                 equilibrium_at = Some(t);
                 continue;

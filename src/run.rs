@@ -257,9 +257,7 @@ fn horizon(relaxation: &Result<Vec<Mode>, String>) -> f64 {
         .ok()
         .and_then(|modes| modes.first())
         .map_or(0.0, |m| m.tau_seconds);
-    (HORIZON_TAUS * slowest)
-        .min(LONGEST_HORIZON)
-        .max(integrate::DEFAULT_MAX_TIME)
+    (HORIZON_TAUS * slowest).clamp(integrate::DEFAULT_MAX_TIME, LONGEST_HORIZON)
 }
 
 /// The integration tolerance of each species at a composition: what counts as noise.

@@ -328,7 +328,10 @@ mod tests {
     fn polished(n: usize, columns: &[Row]) -> (Vec<ConservationLaw>, usize) {
         let (mut rows, rank) = left_null_space(n, columns);
         fewer_negatives(&mut rows);
-        let laws = rows.into_iter().map(|coefficients| ConservationLaw { coefficients }).collect();
+        let laws = rows
+            .into_iter()
+            .map(|coefficients| ConservationLaw { coefficients })
+            .collect();
         (laws, rank)
     }
 

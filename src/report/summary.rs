@@ -127,10 +127,16 @@ pub fn stop_description(result: &RunResult) -> String {
     }
     match (result.solution.stop, result.solution.equilibrium_at) {
         (StopReason::Equilibrium, Some(t)) => format!("equilibrium detected at {}", format_duration(t)),
-        (StopReason::ReachedTime, Some(t)) => format!("reached the requested time; equilibrium detected at {}", format_duration(t)),
+        (StopReason::ReachedTime, Some(t)) => format!(
+            "reached the requested time; equilibrium detected at {}",
+            format_duration(t)
+        ),
         (StopReason::ReachedTime, None) => "reached the requested time; equilibrium not detected".into(),
         (StopReason::MaxTime, _) => horizon_description(result),
-        (StopReason::MaxSteps, _) => format!("step budget used up at {}", format_duration(result.solution.trajectory.end_time())),
+        (StopReason::MaxSteps, _) => format!(
+            "step budget used up at {}",
+            format_duration(result.solution.trajectory.end_time())
+        ),
         (StopReason::Equilibrium, None) => "equilibrium detected".into(),
     }
 }
@@ -139,7 +145,12 @@ pub fn stop_description(result: &RunResult) -> String {
 fn horizon_description(result: &RunResult) -> String {
     let end = format_duration(result.solution.trajectory.end_time());
     let slowest = result.relaxation.as_ref().ok().and_then(|m| m.first());
-    let tightest = result.settings.tolerances.iter().copied().fold(f64::INFINITY, f64::min);
+    let tightest = result
+        .settings
+        .tolerances
+        .iter()
+        .copied()
+        .fold(f64::INFINITY, f64::min);
     match (&result.solved, slowest) {
         (Ok(_), Some(mode)) if tightest.is_finite() => format!(
             "equilibrium not reached by {end}: slowest relaxation time {}, so {}% needs about {}; use --until",
