@@ -67,6 +67,8 @@ pub struct EquilibriumSolver {
     pub iterations: usize,
     pub max_ln_k_residual: f64,
     pub max_total_relative_residual: f64,
+    /// Pure phases used up at equilibrium (held at zero).
+    pub used_up: Vec<String>,
 }
 
 #[derive(Debug, Serialize)]
@@ -160,7 +162,7 @@ fn horizon_description(result: &RunResult) -> String {
         ),
         (Ok(_), _) => format!("equilibrium not reached by {end}; use --until to integrate longer"),
         (Err(NoEquilibrium::OneWaySteps(_)), _) => format!(
-            "no equilibrium by {end}: the network has one-way steps (a feed or a sink among them, perhaps)"
+            "no equilibrium by {end}: the network has one-way steps, so it runs on until a reactant is used up"
         ),
         (Err(why), _) => format!("no steady state detected by {end} ({why})"),
     }
@@ -259,6 +261,7 @@ impl Summary {
                 iterations: e.iterations,
                 max_ln_k_residual: e.max_k_residual,
                 max_total_relative_residual: e.max_total_residual,
+                used_up: e.used_up.clone(),
             }),
             integrated_vs_solved_max_relative_difference: result.disagreement,
             routes_agree: result.disagreement.map(|_| !result.disagrees),

@@ -177,6 +177,11 @@ fn write_agreement(out: &mut String, result: &RunResult) {
         ),
         (Err(why), _) => writeln!(out, "  equilibrium: {why}"),
     };
+    if let Ok(solved) = &result.solved {
+        if !solved.used_up.is_empty() {
+            let _ = writeln!(out, "  used up at equilibrium: {}", solved.used_up.join(", "));
+        }
+    }
 }
 
 fn write_settling(out: &mut String, result: &RunResult) {
