@@ -418,3 +418,39 @@ fn every_bundled_case_with_an_equilibrium_reaches_it_and_the_routes_agree() {
     }
     assert!(checked >= 4, "only {checked} bundled cases have an equilibrium");
 }
+
+#[test]
+fn a_horizon_too_short_is_said_with_figures_not_blamed_on_one_way_steps() {
+    // A <=> B with kf = kr = 1e-17 /s: τ = 1/(kf + kr) = 5e16 s (textbook first-order
+    // relaxation), beyond the longest automatic horizon of 1e16 s.
+    let t = "[species]\nA = 1.0\nB = 0.0\n\n[[reaction]]\nequation = \"A <=> B\"\nkf = 1e-17\nkr = 1e-17\n";
+    let result = run(&network(t), &RunSettings::default()).expect("run succeeds");
+    assert!(result.solution.equilibrium_at.is_none());
+    let said = kinequil::report::summary::stop_description(&result);
+    assert!(
+        said.contains("use --until") && said.contains("relaxation time"),
+        "{said}"
+    );
+    assert!(!said.contains("one-way"), "{said}");
+    let tau = result.relaxation.as_ref().unwrap()[0].tau_seconds;
+    assert!(rel(tau, 5e16) < 1e-9, "{tau}");
+}
+
+#[test]
+fn an_approach_far_from_the_linear_regime_is_flagged() {
+    // 2 A <=> B with kf = 1e6 L/(mol s), kr = 1e-8 /s from A = 1: the start is second order and
+    // fast, the equilibrium relaxation (1/τ = 4 kf [A]eq + kr) slow, so τ·ln(1/tol) overstates
+    // the integrated time by orders of magnitude and the run must say so.
+    let t = "[species]\nA = 1.0\nB = 0.0\n\n[[reaction]]\nequation = \"2 A <=> B\"\nkf = 1e6\nkr = 1e-8\n";
+    let result = run(&network(t), &RunSettings::default()).expect("run succeeds");
+    assert!(result.solution.equilibrium_at.is_some() && !result.disagrees);
+    let note = kinequil::report::summary::nonlinear_approach_note(&result).expect("a note");
+    assert!(note.contains("not in the linear regime"), "{note}");
+    // The demo batch is close to linear: no note there.
+    let demo = kinequil::network::Network::from_file(
+        &std::path::Path::new(env!("CARGO_MANIFEST_DIR")).join("cases/demo.toml"),
+    )
+    .unwrap();
+    let result = run(&demo, &RunSettings::default()).expect("run succeeds");
+    assert!(kinequil::report::summary::nonlinear_approach_note(&result).is_none());
+}
