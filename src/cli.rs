@@ -84,6 +84,10 @@ pub struct RunArgs {
     /// Report the state at this time in seconds (the run still finds time to equilibrium).
     #[arg(long, value_name = "SECONDS")]
     pub until: Option<f64>,
+    /// Wall-clock budget for the integration in seconds: the run ends cleanly with what it
+    /// reached and says so.
+    #[arg(long, value_name = "SECONDS")]
+    pub max_seconds: Option<f64>,
     /// Add a tolerance for time to equilibrium, as a fraction of the total change (e.g. 0.05).
     #[arg(long, value_name = "FRACTION")]
     pub tol: Vec<f64>,
@@ -238,7 +242,14 @@ fn run_command(args: RunArgs) -> Result<String, Error> {
     if !args.force {
         report::refuse_existing(&out, report::RUN_FILES)?;
     }
+    if args.max_seconds.is_some_and(|s| !(s > 0.0 && s.is_finite())) {
+        return Err(Error::Option {
+            option: "--max-seconds".into(),
+            message: "must be a positive number of seconds".into(),
+        });
+    }
     let settings = RunSettings {
+        max_seconds: args.max_seconds,
         until: args.until,
         tolerances,
         rtol,

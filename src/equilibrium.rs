@@ -209,8 +209,16 @@ fn solve_with(
     for column in &stoich.columns {
         elimination.insert(column, 0.0);
     }
-    for &p in &present {
-        elimination.insert(&[(p, 1.0)], 0.0);
+    // Species in no step (spectators) keep their initial amount: held fixed like the present
+    // pure phases, they drop out of the laws, so a large list of them costs nothing.
+    let mut in_a_step = vec![false; n];
+    for column in &stoich.columns {
+        for e in column {
+            in_a_step[e.0] = true;
+        }
+    }
+    for i in (0..n).filter(|&i| present.contains(&i) || !in_a_step[i]) {
+        elimination.insert(&[(i, 1.0)], 0.0);
     }
     let scale = c0
         .iter()
@@ -237,7 +245,9 @@ fn solve_with(
         .enumerate()
         .map(|(i, r)| dissolved(i) && !r)
         .collect();
-    let positive: Vec<usize> = (0..n).filter(|&i| dissolved(i) && !zero[i]).collect();
+    let positive: Vec<usize> = (0..n)
+        .filter(|&i| dissolved(i) && !zero[i] && in_a_step[i])
+        .collect();
     let mut column_of = vec![usize::MAX; n];
     for (k, &i) in positive.iter().enumerate() {
         column_of[i] = k;
@@ -297,7 +307,9 @@ fn solve_with(
     let start: Vec<f64> = positive.iter().map(|&i| c0[i]).collect();
     let (c_pos, iterations) = maximise_dual(&g, &laws_pos, &start)?;
 
-    let mut concentrations = vec![0.0; n];
+    let mut concentrations: Vec<f64> = (0..n)
+        .map(|i| if in_a_step[i] || !dissolved(i) { 0.0 } else { c0[i] })
+        .collect();
     for (k, &i) in positive.iter().enumerate() {
         concentrations[i] = c_pos[k];
     }

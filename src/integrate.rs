@@ -47,6 +47,8 @@ pub struct Options {
     /// The equilibrium solved directly, when there is one: the run has reached equilibrium as
     /// soon as every species is within its integration tolerance of it.
     pub target: Option<Vec<f64>>,
+    /// Wall-clock budget, s: the integration ends cleanly with what it has reached.
+    pub max_seconds: Option<f64>,
 }
 
 impl Options {
@@ -60,6 +62,7 @@ impl Options {
             max_steps: 200_000,
             force_dense: None,
             target: None,
+            max_seconds: None,
         }
     }
 }
@@ -81,6 +84,9 @@ pub enum StopReason {
     MaxTime,
     /// Step budget used up.
     MaxSteps,
+    /// Wall-clock budget (`max_seconds`) used up.
+    TimeBudget,
+
 }
 
 /// Work counters, for the summary and for comparisons between solvers.
@@ -326,6 +332,16 @@ pub fn integrate(
         if stats.steps >= options.max_steps {
             break StopReason::MaxSteps;
         }
+        if options
+            .max_seconds
+            .is_some_and(|budget| started.elapsed().as_secs_f64() > budget)
+        {
+            break StopReason::TimeBudget;
+        }
+        // Rejections count against the budget too, so that no input can loop for ever.
+        if stats.rejected_steps >= options.max_steps {
+            break StopReason::MaxSteps;
+        }
         h = h.min(target - t);
         if h <= 1e-14 * t.max(1e-300) || !h.is_finite() {
             return Err(Error::Integration {
@@ -350,6 +366,7 @@ pub fn integrate(
         if solver.factor(&matrix).is_err() {
             h *= 0.25;
             stats.rejected_steps += 1;
+            rejected_last = true;
             continue;
         }
         let mut failed = false;
@@ -375,6 +392,7 @@ pub fn integrate(
         if failed {
             h *= 0.25;
             stats.rejected_steps += 1;
+            rejected_last = true;
             continue;
         }
         // Stiffly accurate: y1 = Y6 + u6, and u6 is the error estimate.

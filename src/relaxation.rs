@@ -95,6 +95,10 @@ pub fn modes(network: &Network, c_eq: &[f64]) -> Result<Vec<Mode>, String> {
             b[(k, j)] = v * rate.sqrt() / c_eq[positive[k]].sqrt();
         }
     }
+    // A non-finite entry (rates beyond double range) would make the decomposition fail.
+    if b.iter().any(|x| !x.is_finite()) {
+        return Err("equilibrium rates out of floating-point range; relaxation analysis skipped".into());
+    }
     let svd = b.svd(true, true);
     let (Some(u), Some(v_t)) = (svd.u, svd.v_t) else {
         return Err("singular value decomposition failed".into());

@@ -33,6 +33,8 @@ pub struct RunSettings {
     pub output_times: Vec<f64>,
     /// Also write `table_at_times.csv` rows every this many seconds up to the final time.
     pub output_every: Option<f64>,
+    /// Wall-clock budget for the integration, s (None: no limit).
+    pub max_seconds: Option<f64>,
 }
 
 /// Units of time and concentration for tables and charts (the JSON summary stays in s and mol/L).
@@ -63,6 +65,7 @@ impl Default for RunSettings {
             chart: ChartOptions::default(),
             output_times: Vec::new(),
             output_every: None,
+            max_seconds: None,
         }
     }
 }
@@ -154,6 +157,7 @@ pub fn run(network: &Network, settings: &RunSettings) -> Result<RunResult, Error
         force_dense: settings.force_dense,
         target: solved.as_ref().ok().map(|e| e.concentrations.clone()),
         max_time: horizon(&relaxation),
+        max_seconds: settings.max_seconds,
         ..Options::new(network.n_species())
     };
     let solution = integrate::integrate(

@@ -20,7 +20,8 @@ impl Formula {
 pub fn parse_formula(text: &str) -> Result<Formula, String> {
     let mut elements: Vec<(String, f64)> = Vec::new();
     // Hydrates and adducts: `CuSO4·5H2O` (or `.` / `*` as the dot).
-    for (k, part) in text.split(['·', '*']).enumerate() {
+    let dotted = hydrate_dots(text);
+    for (k, part) in dotted.split(['·', '*']).enumerate() {
         let part = part.trim();
         if part.is_empty() {
             return Err(format!("empty part in formula `{text}`"));
@@ -44,6 +45,21 @@ pub fn parse_formula(text: &str) -> Result<Formula, String> {
         return Err(format!("formula `{text}` names no element"));
     }
     Ok(Formula { elements })
+}
+
+/// A `.` is the hydrate dot (`CuSO4.5H2O`), except directly after a lone `0`, where it is a
+/// decimal point (`Fe0.95O`): a count that starts with 0 can only be a fraction.
+fn hydrate_dots(text: &str) -> String {
+    let chars: Vec<char> = text.chars().collect();
+    let mut out = String::with_capacity(text.len());
+    for (i, &c) in chars.iter().enumerate() {
+        let after_lone_zero = i >= 1
+            && chars[i - 1] == '0'
+            && (i < 2 || !chars[i - 2].is_ascii_digit())
+            && chars.get(i + 1).is_some_and(|d| d.is_ascii_digit());
+        out.push(if c == '.' && !after_lone_zero { '·' } else { c });
+    }
+    out
 }
 
 fn add(elements: &mut Vec<(String, f64)>, element: &str, n: f64) {
@@ -115,6 +131,11 @@ mod tests {
         assert_eq!((f.count("Ca"), f.count("O"), f.count("H")), (1.0, 2.0, 2.0));
         let f = parse_formula("CuSO4·5H2O").unwrap();
         assert_eq!((f.count("O"), f.count("H")), (9.0, 10.0));
+        // The ASCII hydrate dot, and a decimal count after a lone 0.
+        let f = parse_formula("CuSO4.5H2O").unwrap();
+        assert_eq!((f.count("Cu"), f.count("O"), f.count("H")), (1.0, 9.0, 10.0));
+        let f = parse_formula("Fe0.95O").unwrap();
+        assert_eq!((f.count("Fe"), f.count("O")), (0.95, 1.0));
         let f = parse_formula("[Fe(CN)6]").unwrap();
         assert_eq!((f.count("Fe"), f.count("C"), f.count("N")), (1.0, 6.0, 6.0));
         for bad in ["", "c2h6o", "Ca(OH", "Fe3+", "H2O·"] {

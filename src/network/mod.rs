@@ -23,6 +23,29 @@ pub use formula::{parse_formula, Formula};
 /// Run temperature when the file gives none (IUPAC standard ambient temperature).
 pub const DEFAULT_TEMPERATURE_K: f64 = 298.15;
 
+/// Ranges outside which a value is not physical for this model, so it is refused with a message
+/// rather than left to overflow or stall the solvers (common practice; the bounds are generous).
+pub mod limits {
+    /// Stoichiometric coefficients: written equations use small numbers.
+    pub const MAX_COEFFICIENT: f64 = 100.0;
+    /// Rate-law orders.
+    pub const MAX_ORDER: f64 = 10.0;
+    /// Initial amounts, mol/L: nothing is denser than about 100 mol/L (water is 55).
+    pub const MAX_AMOUNT: f64 = 1e4;
+    /// Non-zero initial amounts below this (far less than one molecule per cubic metre) are
+    /// rounding, not chemistry: write 0.
+    pub const MIN_AMOUNT: f64 = 1e-30;
+    /// Rate constants in mol/L and s: far beyond diffusion control (1e10 L/(mol s)) and kT/h
+    /// (6e12 1/s at 300 K).
+    pub const MAX_RATE_CONSTANT: f64 = 1e25;
+    /// Non-zero rate and equilibrium constants below this underflow in products of rates.
+    pub const MIN_CONSTANT: f64 = 1e-250;
+    /// Equilibrium constants above this overflow in products of concentrations.
+    pub const MAX_EQUILIBRIUM_CONSTANT: f64 = 1e250;
+    /// Temperatures, K: the isothermal ideal model has no meaning outside this range.
+    pub const TEMPERATURE: (f64, f64) = (100.0, 5000.0);
+}
+
 /// How a species enters rate laws and equilibrium expressions.
 #[derive(Debug, Clone, Copy, PartialEq, Eq)]
 pub enum Phase {
@@ -235,16 +258,29 @@ impl<'a> Reader<'a> {
             Some(v) => self.string(v, "title")?.to_string(),
             None => String::new(),
         };
+        let (low, high) = limits::TEMPERATURE;
+        let out_of_range = |t: f64| !(low..=high).contains(&t);
         let temperature = match root.get("temperature") {
             Some(v) => {
                 let t = self.quantity(v, "temperature", Dimension::TEMPERATURE, 1.0)?;
-                if t <= 0.0 {
-                    return Err(self.error(Some(v.span()), "temperature", "must be above 0 K"));
+                if out_of_range(t) {
+                    return Err(self.error(
+                        Some(v.span()),
+                        "temperature",
+                        format!("{t} K is outside {low} K to {high} K (common practice for this model)"),
+                    ));
                 }
                 t
             }
             None => DEFAULT_TEMPERATURE_K,
         };
+        if let Some(t) = self.temperature_override.filter(|&t| out_of_range(t)) {
+            return Err(self.error(
+                None,
+                "temperature",
+                format!("the run temperature {t} K is outside {low} K to {high} K (common practice for this model)"),
+            ));
+        }
         let temperature = self.temperature_override.unwrap_or(temperature);
         let species = self.species(root.get("species"), temperature)?;
         let reactions = self.reactions(root.get("reaction"), &species, temperature)?;
@@ -453,6 +489,21 @@ impl<'a> Reader<'a> {
         };
         let reactants = resolve(&parsed.reactants)?;
         let products = resolve(&parsed.products)?;
+        if let Some((name, c)) = parsed
+            .reactants
+            .iter()
+            .chain(&parsed.products)
+            .find(|(_, c)| *c > limits::MAX_COEFFICIENT)
+        {
+            return Err(self.error(
+                Some(eq_value.span()),
+                &eq_field,
+                format!(
+                    "the coefficient {c:e} of `{name}` is above {} (common practice: chemical equations use small coefficients)",
+                    limits::MAX_COEFFICIENT
+                ),
+            ));
+        }
 
         let forward_orders = self.orders(
             table.get("orders"),
@@ -528,6 +579,36 @@ impl<'a> Reader<'a> {
             }
             (None, None) => None,
         };
+        if let (Some(k), Some(v)) = (&equilibrium, table.get("K").or(table.get("Kp"))) {
+            let k_field = format!("{field}.{}", if table.get("K").is_some() { "K" } else { "Kp" });
+            let kc = k.kc;
+            if !(limits::MIN_CONSTANT..=limits::MAX_EQUILIBRIUM_CONSTANT).contains(&kc) {
+                return Err(self.error(
+                    Some(v.span()),
+                    &k_field,
+                    format!(
+                        "evaluates to Kc = {} at {t} K, outside {:e} to {:e}: the step is one-way in practice; write it with `=>`",
+                        finite_or_word(kc),
+                        limits::MIN_CONSTANT,
+                        limits::MAX_EQUILIBRIUM_CONSTANT
+                    ),
+                ));
+            }
+            if kr_read.is_none() && parsed.reversible {
+                let kr = kf / kc;
+                if kr > limits::MAX_RATE_CONSTANT || (kr > 0.0 && kr < limits::MIN_CONSTANT) {
+                    return Err(self.error(
+                        Some(v.span()),
+                        &k_field,
+                        format!(
+                            "makes kr = kf/K = {kr:e}, outside {:e} to {:e} (common practice)",
+                            limits::MIN_CONSTANT,
+                            limits::MAX_RATE_CONSTANT
+                        ),
+                    ));
+                }
+            }
+        }
         let (kr, kr_arrhenius) = if parsed.reversible {
             match (kr_read, &equilibrium) {
                 (Some(kr), _) => kr,
@@ -609,6 +690,13 @@ impl<'a> Reader<'a> {
                 if order < 0.0 {
                     return Err(self.error(Some(v.span()), &sub, "negative orders are not supported"));
                 }
+                if order > limits::MAX_ORDER {
+                    return Err(self.error(
+                        Some(v.span()),
+                        &sub,
+                        format!("an order above {} is not a rate law (common practice)", limits::MAX_ORDER),
+                    ));
+                }
                 match orders.iter_mut().find(|(s, _)| *s == i) {
                     Some(entry) => entry.1 = order,
                     None => orders.push((i, order)),
@@ -685,6 +773,26 @@ impl<'a> Reader<'a> {
         if c < 0.0 {
             return Err(self.error(Some(value.span()), field, "a concentration must not be negative"));
         }
+        if c > limits::MAX_AMOUNT {
+            return Err(self.error(
+                Some(value.span()),
+                field,
+                format!(
+                    "{c:e} mol/L is above {:e} mol/L, denser than any substance (common practice)",
+                    limits::MAX_AMOUNT
+                ),
+            ));
+        }
+        if c > 0.0 && c < limits::MIN_AMOUNT {
+            return Err(self.error(
+                Some(value.span()),
+                field,
+                format!(
+                    "{c:e} mol/L is below {:e} mol/L, less than one molecule in a cubic kilometre: write 0",
+                    limits::MIN_AMOUNT
+                ),
+            ));
+        }
         Ok(c)
     }
 
@@ -759,11 +867,16 @@ impl<'a> Reader<'a> {
         if k < 0.0 {
             return Err(self.error(Some(value.span()), field, "must not be negative"));
         }
-        if !k.is_finite() {
+        if !k.is_finite() || k > limits::MAX_RATE_CONSTANT || (k > 0.0 && k < limits::MIN_CONSTANT) {
             return Err(self.error(
                 Some(value.span()),
                 field,
-                "evaluates to a number too large to use",
+                format!(
+                    "evaluates to {} at {t} K, outside {:e} to {:e} (common practice; mol/L and s)",
+                    finite_or_word(k),
+                    limits::MIN_CONSTANT,
+                    limits::MAX_RATE_CONSTANT
+                ),
             ));
         }
         Ok((k, arrhenius))
@@ -950,6 +1063,19 @@ struct EquilibriumConstant {
     kc: f64,
     source: String,
     enthalpy: Option<f64>,
+}
+
+/// A value for a message: overflow and underflow said in words, never `inf` or `NaN`.
+fn finite_or_word(x: f64) -> String {
+    if x.is_nan() {
+        "no number (0/0 or ∞/∞)".into()
+    } else if x.is_infinite() {
+        "a number beyond 1e308 (overflow)".into()
+    } else if x == 0.0 {
+        "0 (underflow)".into()
+    } else {
+        format!("{x:e}")
+    }
 }
 
 fn trim_order(order: f64) -> String {

@@ -135,6 +135,10 @@ pub fn stop_description(result: &RunResult) -> String {
         ),
         (StopReason::ReachedTime, None) => "reached the requested time; equilibrium not detected".into(),
         (StopReason::MaxTime, _) => horizon_description(result),
+        (StopReason::TimeBudget, _) => format!(
+            "stopped by the --max-seconds budget at {} before equilibrium was detected",
+            format_duration(result.solution.trajectory.end_time())
+        ),
         (StopReason::MaxSteps, _) => format!(
             "step budget used up at {}",
             format_duration(result.solution.trajectory.end_time())
