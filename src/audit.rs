@@ -366,7 +366,7 @@ pub fn audit(network: &Network, tol_kj: f64, adjust: Adjust) -> Audit {
                 });
             }
         }
-        if let Some(ratio) = ratio {
+        if let Some(ratio) = ratio.filter(|r| *r > 0.0 && r.is_finite()) {
             if ratio.log10().abs() > STIFF_DECADES {
                 warnings.push(Warning {
                     step: number,

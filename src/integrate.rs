@@ -86,7 +86,6 @@ pub enum StopReason {
     MaxSteps,
     /// Wall-clock budget (`max_seconds`) used up.
     TimeBudget,
-
 }
 
 /// Work counters, for the summary and for comparisons between solvers.

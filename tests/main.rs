@@ -9,6 +9,7 @@ mod conditions;
 mod docs;
 mod equilibrium;
 mod explicit_reference;
+mod fuzz;
 mod input_errors;
 mod model;
 mod report;

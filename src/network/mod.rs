@@ -694,7 +694,10 @@ impl<'a> Reader<'a> {
                     return Err(self.error(
                         Some(v.span()),
                         &sub,
-                        format!("an order above {} is not a rate law (common practice)", limits::MAX_ORDER),
+                        format!(
+                            "an order above {} is not a rate law (common practice)",
+                            limits::MAX_ORDER
+                        ),
                     ));
                 }
                 match orders.iter_mut().find(|(s, _)| *s == i) {
@@ -773,6 +776,7 @@ impl<'a> Reader<'a> {
         if c < 0.0 {
             return Err(self.error(Some(value.span()), field, "a concentration must not be negative"));
         }
+        let c = c.abs(); // -0.0 is zero
         if c > limits::MAX_AMOUNT {
             return Err(self.error(
                 Some(value.span()),
@@ -867,6 +871,7 @@ impl<'a> Reader<'a> {
         if k < 0.0 {
             return Err(self.error(Some(value.span()), field, "must not be negative"));
         }
+        let k = k.abs(); // -0.0 is zero
         if !k.is_finite() || k > limits::MAX_RATE_CONSTANT || (k > 0.0 && k < limits::MIN_CONSTANT) {
             return Err(self.error(
                 Some(value.span()),

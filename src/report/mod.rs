@@ -207,6 +207,9 @@ pub fn trim_percent(fraction: f64) -> String {
 }
 
 pub fn format_duration(seconds: f64) -> String {
+    if !seconds.is_finite() {
+        return "(out of range)".into();
+    }
     let friendly = if seconds >= 86_400.0 * 2.0 {
         format!(" ({:.2} d)", seconds / 86_400.0)
     } else if seconds >= 3600.0 {
@@ -229,6 +232,10 @@ pub fn significant(x: f64) -> String {
 pub fn with_digits(x: f64, digits: usize) -> String {
     if x == 0.0 {
         return "0".into();
+    }
+    if !x.is_finite() {
+        // Never print NaN or inf; the checks upstream should have stopped such a value.
+        return "(out of range)".into();
     }
     if x.abs() >= 1e6 || x.abs() < 1e-3 {
         let text = format!("{x:.prec$e}", prec = digits - 1);
