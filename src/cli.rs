@@ -242,6 +242,7 @@ fn run_command(args: RunArgs) -> Result<String, Error> {
     if !args.force {
         report::refuse_existing(&out, report::RUN_FILES)?;
     }
+    report::refuse_foreign(&out)?;
     if args.max_seconds.is_some_and(|s| !(s > 0.0 && s.is_finite())) {
         return Err(Error::Option {
             option: "--max-seconds".into(),

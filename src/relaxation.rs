@@ -134,7 +134,10 @@ pub fn modes(network: &Network, c_eq: &[f64]) -> Result<Vec<Mode>, String> {
         })
         .collect();
     modes.sort_by(|a, b| b.tau_seconds.total_cmp(&a.tau_seconds));
-    if modes.first().is_some_and(|m| !(m.tau_seconds < 1e300)) {
+    if modes
+        .first()
+        .is_some_and(|m| m.tau_seconds.is_nan() || m.tau_seconds >= 1e300)
+    {
         return Err(
             "a mode is too slow for floating-point range (τ beyond 1e300 s): a step is all but frozen".into(),
         );

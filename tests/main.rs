@@ -10,6 +10,7 @@ mod docs;
 mod equilibrium;
 mod explicit_reference;
 mod fuzz;
+mod hardening;
 mod input_errors;
 mod model;
 mod report;

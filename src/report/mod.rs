@@ -157,41 +157,102 @@ pub fn write_new_file(path: &Path, bytes: &[u8], force: bool) -> Result<(), Erro
     })
 }
 
-/// Writes the files into `dir` all together: staged in a hidden folder inside `dir`, then
-/// renamed into place. Refuses when any of them exists already unless `force`.
+/// Marks a folder as a kinequil run folder, so `--force` may replace it whole.
+pub const RUN_MARKER: &str = ".kinequil-run";
+
+/// Writes a run's files as one folder `dir`, whole or not at all: the complete new folder is
+/// built beside `dir` (hidden), then renamed into place; an earlier run in `dir` is renamed aside
+/// first and removed after, so `dir` always holds exactly one run and `--force` leaves no file
+/// of the earlier one. Refuses when `dir` holds results unless `force`, and always refuses to
+/// replace a folder holding files kinequil did not write.
 pub fn write_all(dir: &Path, files: &[(String, Vec<u8>)], force: bool) -> Result<Vec<PathBuf>, Error> {
     let write_error = |path: &Path, e: std::io::Error| Error::Write {
         path: path.to_path_buf(),
         message: e.to_string(),
     };
-    if !force {
-        refuse_existing(dir, files.iter().map(|(name, _)| name.as_str()))?;
+    let exists = dir.exists();
+    if exists {
+        if !force {
+            refuse_existing(dir, files.iter().map(|(name, _)| name.as_str()))?;
+        }
+        refuse_foreign(dir)?;
     }
-    fs::create_dir_all(dir).map_err(|e| write_error(dir, e))?;
-    let staging = dir.join(format!(".kinequil-staging-{}", std::process::id()));
+    let name = dir
+        .file_name()
+        .map(|n| n.to_string_lossy().into_owned())
+        .ok_or_else(|| Error::Write {
+            path: dir.to_path_buf(),
+            message: "the output folder needs a name of its own (not `.` or `/`)".into(),
+        })?;
+    let parent = dir
+        .parent()
+        .filter(|p| !p.as_os_str().is_empty())
+        .unwrap_or(Path::new("."));
+    fs::create_dir_all(parent).map_err(|e| write_error(parent, e))?;
+    let staging = parent.join(format!(".{name}.kinequil-new-{}", std::process::id()));
     let staged = (|| -> Result<(), Error> {
         fs::create_dir_all(&staging).map_err(|e| write_error(&staging, e))?;
-        for (name, bytes) in files {
-            let path = staging.join(name);
+        for (file, bytes) in files {
+            let path = staging.join(file);
             fs::write(&path, bytes).map_err(|e| write_error(&path, e))?;
         }
-        Ok(())
+        let marker = staging.join(RUN_MARKER);
+        fs::write(
+            &marker,
+            b"written by kinequil; --force may replace this folder whole\n",
+        )
+        .map_err(|e| write_error(&marker, e))
     })();
     if let Err(e) = staged {
         let _ = fs::remove_dir_all(&staging);
         return Err(e);
     }
-    let mut written = Vec::new();
-    for (name, _) in files {
-        let target = dir.join(name);
-        if let Err(e) = fs::rename(staging.join(name), &target) {
+    let aside = parent.join(format!(".{name}.kinequil-old-{}", std::process::id()));
+    if exists {
+        if let Err(e) = fs::rename(dir, &aside) {
             let _ = fs::remove_dir_all(&staging);
-            return Err(write_error(&target, e));
+            return Err(write_error(dir, e));
         }
-        written.push(target);
     }
-    let _ = fs::remove_dir_all(&staging);
-    Ok(written)
+    if let Err(e) = fs::rename(&staging, dir) {
+        if exists {
+            let _ = fs::rename(&aside, dir);
+        }
+        let _ = fs::remove_dir_all(&staging);
+        return Err(write_error(dir, e));
+    }
+    if exists {
+        let _ = fs::remove_dir_all(&aside);
+    }
+    Ok(files.iter().map(|(file, _)| dir.join(file)).collect())
+}
+
+/// Refuses to replace a folder that holds anything but kinequil's own run files.
+pub fn refuse_foreign(dir: &Path) -> Result<(), Error> {
+    if !dir.exists() {
+        return Ok(());
+    }
+    let entries = fs::read_dir(dir).map_err(|e| Error::Write {
+        path: dir.to_path_buf(),
+        message: e.to_string(),
+    })?;
+    let foreign: Vec<String> = entries
+        .filter_map(|e| e.ok())
+        .map(|e| e.file_name().to_string_lossy().into_owned())
+        .filter(|n| n != RUN_MARKER && !RUN_FILES.contains(&n.as_str()))
+        .collect();
+    if foreign.is_empty() {
+        Ok(())
+    } else {
+        Err(Error::Option {
+            option: "--out".into(),
+            message: format!(
+                "{} holds files kinequil did not write ({}); a run is written as a folder of its own: choose a new one",
+                dir.display(),
+                foreign.join(", ")
+            ),
+        })
+    }
 }
 
 /// Seconds with a friendlier unit beside them when the number is large.

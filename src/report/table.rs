@@ -158,9 +158,16 @@ pub fn summary_row_csv(result: &RunResult, input_sha256: &str) -> String {
         format!("{}", result.network.temperature),
         format!("{:.9e}", result.final_time),
     ];
-    for s in &result.settling {
-        header.push(format!("time to equilibrium {} % [s]", s.tolerance * 100.0));
-        row.push(s.seconds.map_or(String::new(), |t| format!("{t:.9e}")));
+    // Always the default tolerances, whatever --tol adds (those are in summary.json), so rows
+    // of different runs line up.
+    for tolerance in crate::analysis::DEFAULT_TOLERANCES {
+        header.push(format!("time to equilibrium {} % [s]", tolerance * 100.0));
+        let seconds = result
+            .settling
+            .iter()
+            .find(|s| s.tolerance == tolerance)
+            .and_then(|s| s.seconds);
+        row.push(seconds.map_or(String::new(), |t| format!("{t:.9e}")));
     }
     header.push("slowest relaxation time [s]".into());
     row.push(
@@ -183,11 +190,12 @@ pub fn summary_row_csv(result: &RunResult, input_sha256: &str) -> String {
         header.push(format!("{} final [mol/L]", s.name));
         row.push(format!("{:.9e}", result.final_state[i]));
     }
-    if let Ok(solved) = &result.solved {
-        for (i, s) in result.network.species.iter().enumerate() {
-            header.push(format!("{} equilibrium [mol/L]", s.name));
-            row.push(format!("{:.9e}", solved.concentrations[i]));
-        }
+    // Equilibrium columns are there even when none exists (then empty).
+    for (i, s) in result.network.species.iter().enumerate() {
+        header.push(format!("{} equilibrium [mol/L]", s.name));
+        row.push(result.solved.as_ref().map_or(String::new(), |solved| {
+            format!("{:.9e}", solved.concentrations[i])
+        }));
     }
     let mut writer = csv::Writer::from_writer(Vec::new());
     let _ = writer.write_record(&header);
