@@ -639,9 +639,15 @@ fn concentration_power(n: f64) -> String {
     }
 }
 
-/// The network file's text with the corrected constants written in (comments and layout kept).
-/// A step whose kr was defined by K gets an explicit kr and loses K, so the file says what it
-/// now means.
+/// The network file's text with the corrected constants written in, each in the form it was
+/// given (comments and layout kept). Only multiplicative factors are applied, so a correction
+/// found at one temperature holds at every temperature the file can be evaluated at:
+/// - kf (and an explicit kr) is scaled where it is written: a plain number, the number of a
+///   string with units, or Arrhenius A (Ea and n unchanged);
+/// - a kr defined by K or Kp is corrected through K (or Kp): K × (kf factor / kr factor), in
+///   its own form (number, string with units, `value` of a van 't Hoff table, or dS of a dH/dS
+///   table, shifted by R ln factor); no kr is added and no K is deleted;
+/// - an independent K (beside an explicit kr) is a reference and is never touched.
 pub fn corrected_network_text(original: &str, correction: &Correction) -> Result<String, String> {
     let mut doc: toml_edit::DocumentMut = original
         .parse()
@@ -654,21 +660,22 @@ pub fn corrected_network_text(original: &str, correction: &Correction) -> Result
         let table = reactions
             .get_mut(step.step - 1)
             .ok_or("reaction numbering changed")?;
-        for (key, old, new) in [
-            ("kf", step.kf, step.kf_corrected),
-            ("kr", step.kr, step.kr_corrected),
-        ] {
-            if new != old {
-                let mut value = toml_edit::value(new);
-                if let Some(v) = value.as_value_mut() {
-                    v.decor_mut()
-                        .set_suffix(format!("  # corrected by kinequil check, was {old}"));
-                }
-                table[key] = value;
-            }
+        let kf_factor = step.kf_corrected / step.kf;
+        let kr_factor = step.kr_corrected / step.kr;
+        let note = |what: &str, factor: f64| format!("  # kinequil check: {what} × {factor:.6}");
+        if kf_factor != 1.0 {
+            scale_constant(table, "kf", kf_factor, &note("kf", kf_factor))?;
         }
-        if step.kr_corrected != step.kr && table.contains_key("K") {
-            table.remove("K");
+        if table.contains_key("kr") {
+            if kr_factor != 1.0 {
+                scale_constant(table, "kr", kr_factor, &note("kr", kr_factor))?;
+            }
+        } else {
+            let key = if table.contains_key("K") { "K" } else { "Kp" };
+            let factor = kf_factor / kr_factor;
+            if factor != 1.0 {
+                scale_constant(table, key, factor, &note(key, factor))?;
+            }
         }
     }
     let header = format!(
@@ -677,4 +684,82 @@ pub fn corrected_network_text(original: &str, correction: &Correction) -> Result
         correction.adjust.name()
     );
     Ok(header + &doc.to_string())
+}
+
+/// Multiplies the constant under `key` by `factor` in the form it is written in.
+fn scale_constant(table: &mut toml_edit::Table, key: &str, factor: f64, note: &str) -> Result<(), String> {
+    let value = table
+        .get_mut(key)
+        .and_then(|item| item.as_value_mut())
+        .ok_or_else(|| format!("`{key}` is not a value the correction can edit"))?;
+    let decor_prefix = value
+        .decor()
+        .prefix()
+        .and_then(|p| p.as_str())
+        .unwrap_or(" ")
+        .to_string();
+    // The user's own comment stays; the note follows it.
+    let old_suffix = value
+        .decor()
+        .suffix()
+        .and_then(|p| p.as_str())
+        .unwrap_or("")
+        .trim_end()
+        .to_string();
+    let suffix = if old_suffix.contains('#') {
+        format!("{old_suffix};{}", note.trim_start().trim_start_matches('#'))
+    } else {
+        note.to_string()
+    };
+    match &mut *value {
+        toml_edit::Value::InlineTable(parts) => {
+            if parts.contains_key("A") {
+                scale_number(parts, "A", factor)?;
+            } else if parts.contains_key("value") {
+                scale_number(parts, "value", factor)?;
+            } else if parts.contains_key("dS") {
+                // K = exp(−(dH − T dS)/RT): K × f is dS + R ln f at every T.
+                let shift = crate::constants::GAS_CONSTANT * factor.ln();
+                let ds = parts.get_mut("dS").ok_or("dS missing")?;
+                let new = match &*ds {
+                    toml_edit::Value::Float(f) => *f.value() + shift,
+                    toml_edit::Value::Integer(i) => *i.value() as f64 + shift,
+                    _ => return Err("dS given with units: correct it by hand".into()),
+                };
+                *ds = toml_edit::Value::from(new);
+            } else {
+                return Err(format!("`{key}` has no A, value or dS to correct"));
+            }
+        }
+        other => *other = scaled(other, factor)?,
+    }
+    value.decor_mut().set_prefix(decor_prefix);
+    value.decor_mut().set_suffix(suffix);
+    Ok(())
+}
+
+fn scale_number(parts: &mut toml_edit::InlineTable, key: &str, factor: f64) -> Result<(), String> {
+    let v = parts.get_mut(key).ok_or_else(|| format!("{key} missing"))?;
+    let decor = v.decor().clone();
+    *v = scaled(v, factor)?;
+    *v.decor_mut() = decor;
+    Ok(())
+}
+
+/// A number times `factor`, or a string "number units" with its number scaled.
+fn scaled(value: &toml_edit::Value, factor: f64) -> Result<toml_edit::Value, String> {
+    match value {
+        toml_edit::Value::Float(f) => Ok(toml_edit::Value::from(*f.value() * factor)),
+        toml_edit::Value::Integer(i) => Ok(toml_edit::Value::from(*i.value() as f64 * factor)),
+        toml_edit::Value::String(text) => {
+            let text = text.value().trim();
+            let end = text.find(|c: char| c.is_whitespace()).unwrap_or(text.len());
+            let (number, units) = text.split_at(end);
+            let x: f64 = number
+                .parse()
+                .map_err(|_| format!("`{text}` does not start with a number"))?;
+            Ok(toml_edit::Value::from(format!("{} {}", x * factor, units.trim())))
+        }
+        _ => Err("not a number or a string with units".into()),
+    }
 }

@@ -231,3 +231,112 @@ fn large_networks_report_cycles_by_their_closing_step() {
     assert!(rel(found.cycles[0].deviation_kj_per_mol.abs(), RT_298 * 3f64.ln()) < 1e-9);
     assert!(!found.consistent && found.correction.is_none());
 }
+
+/// Audits `text` (at `temperature` if given), writes the correction, and audits the written file
+/// again at the same temperature: it must be consistent, and say what it changed in place.
+fn round_trip(text: &str, adjust: Adjust, temperature: Option<f64>) -> String {
+    let read = |t: &str| {
+        kinequil::network::Network::from_text_at(t, std::path::Path::new("inline.toml"), temperature)
+            .unwrap_or_else(|e| panic!("{e}\n{t}"))
+    };
+    let found = audit(&read(text), 0.1, adjust);
+    assert!(!found.consistent, "the test network must start inconsistent");
+    let correction = found.correction.as_ref().expect("a correction");
+    let fixed = corrected_network_text(text, correction).unwrap();
+    let again = audit(&read(&fixed), 0.1, adjust);
+    assert!(
+        again.consistent,
+        "{adjust:?}: still inconsistent after correction:\n{fixed}"
+    );
+    fixed
+}
+
+#[test]
+fn corrections_keep_every_constant_in_its_form_and_check_clean() {
+    // A three-step cycle off by a factor 2 around it, each step written differently: plain kf
+    // and kr; Arrhenius kf and kr; kf with units and kr defined by K from dH and dS. The
+    // corrected file must check consistent for every --adjust, keep Arrhenius as Arrhenius (A
+    // scaled, Ea kept), keep units, and correct a K-defined kr through K without adding kr.
+    let cycle = r#"temperature = 310
+[species]
+A = 1.0
+B = 0.0
+C = 0.0
+
+[[reaction]]
+equation = "A <=> B"
+kf = 2.0
+kr = 1.0   # measured
+
+[[reaction]]
+equation = "B <=> C"
+kf = { A = 1.0e6, Ea = "30 kJ/mol" }
+kr = { A = 1.0e6, Ea = "30 kJ/mol" }
+
+[[reaction]]
+equation = "C <=> A"
+kf = "3.6 1/h"
+K = { dH = "0 kJ/mol", dS = 0.0 }
+"#;
+    for adjust in [Adjust::Kr, Adjust::Kf, Adjust::Both] {
+        let fixed = round_trip(cycle, adjust, None);
+        assert!(fixed.contains("Ea = \"30 kJ/mol\""), "{fixed}");
+        assert!(fixed.contains("1/h\""), "units kept:\n{fixed}");
+        assert!(
+            !fixed.contains("\nkr = ") || fixed.matches("\nkr = ").count() == 2,
+            "no kr added:\n{fixed}"
+        );
+        assert!(fixed.contains("dH = \"0 kJ/mol\""), "{fixed}");
+        assert!(
+            fixed.contains("# measured") || adjust == Adjust::Kf,
+            "comments kept:\n{fixed}"
+        );
+    }
+    // Under a temperature override the correction is made, and holds, at that temperature; the
+    // file keeps its own temperature line.
+    let fixed = round_trip(cycle, Adjust::Kr, Some(350.0));
+    assert!(fixed.contains("temperature = 310"));
+}
+
+#[test]
+fn an_independent_k_is_a_reference_and_stays() {
+    // kr given explicitly beside K: K is an independent reference that kf/kr misses by a factor
+    // 2; the correction moves kf or kr, never K.
+    let text =
+        "[species]\nD = 1.0\nE = 0.0\n\n[[reaction]]\nequation = \"D <=> E\"\nkf = 1.0\nkr = 1.0\nK = 2.0\n";
+    for adjust in [Adjust::Kr, Adjust::Kf, Adjust::Both] {
+        let fixed = round_trip(text, adjust, None);
+        assert!(fixed.contains("K = 2.0"), "{fixed}");
+    }
+}
+
+#[test]
+fn a_kp_defined_step_is_corrected_through_kp() {
+    // Gas cycle X <=> Y <=> Z <=> X with the last step's kr defined by the standard Kp (Δn = 0,
+    // so Kc = Kp): after a kr correction the file holds Kp and no kr for that step.
+    let text = r#"[species]
+X = { initial = "1 bar", phase = "gas" }
+Y = { initial = 0.0, phase = "gas" }
+Z = { initial = 0.0, phase = "gas" }
+
+[[reaction]]
+equation = "X <=> Y"
+kf = 1.0
+kr = 1.0
+
+[[reaction]]
+equation = "Y <=> Z"
+kf = 1.0
+kr = 1.0
+
+[[reaction]]
+equation = "Z <=> X"
+kf = 1.0
+Kp = 2.0
+"#;
+    for adjust in [Adjust::Kr, Adjust::Kf, Adjust::Both] {
+        let fixed = round_trip(text, adjust, None);
+        let last = &fixed[fixed.rfind("[[reaction]]").unwrap()..];
+        assert!(last.contains("Kp = ") && !last.contains("kr"), "{last}");
+    }
+}

@@ -216,9 +216,8 @@ fn fuzz_whole_runs_of_mutated_cases() {
     let started = Instant::now();
     let (mut runs, mut parsed) = (0u64, 0u64);
     let mut seed = first;
-    // Panics are caught and reported with their seed; keep the default hook quiet meanwhile.
-    let hook = std::panic::take_hook();
-    std::panic::set_hook(Box::new(|_| {}));
+    // Panics are caught and reported with their seed (the panic hook is left alone: other
+    // tests run beside this one and need their messages).
     let mut failures = Vec::new();
     while started.elapsed() < budget() {
         let mut rng = SplitMix(seed);
@@ -236,7 +235,6 @@ fn fuzz_whole_runs_of_mutated_cases() {
         runs += 1;
         seed += 1;
     }
-    std::panic::set_hook(hook);
     eprintln!(
         "fuzz: {runs} mutated inputs ({parsed} valid networks) in {:.1} s, {:.0} per second, seeds {first}..{seed}",
         started.elapsed().as_secs_f64(),
@@ -256,8 +254,6 @@ fn fuzz_parsers_with_random_strings() {
         'A', 'B', 'C', 'H', 'O', 'a', 'e', 'l', 'm', 'o', 's', 'L', '0', '1', '2', '9', '.', '-', '+', '*',
         '/', '^', '(', ')', '[', ']', ' ', '·', '<', '=', '>', 'µ', 'E', 'K', 'd', 'g',
     ];
-    let hook = std::panic::take_hook();
-    std::panic::set_hook(Box::new(|_| {}));
     let mut rng = SplitMix(7);
     let mut failures = Vec::new();
     for _ in 0..20_000 {
@@ -278,6 +274,5 @@ fn fuzz_parsers_with_random_strings() {
             failures.push(text);
         }
     }
-    std::panic::set_hook(hook);
     assert!(failures.is_empty(), "panics on: {failures:?}");
 }
