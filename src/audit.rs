@@ -18,6 +18,7 @@ use serde::Serialize;
 use crate::constants::{rt_kj, BOLTZMANN, PLANCK};
 use crate::network::{kc_from_standard, Network, Phase};
 use crate::stoich::{net_change, Echelon, Insert};
+pub use crate::units::rate_constant_units;
 
 /// Default tolerance on deviations, kJ/mol (about 4 % in K at 298 K).
 pub const DEFAULT_TOL_KJ: f64 = 0.1;
@@ -30,7 +31,7 @@ const CYCLE_BASIS_LIMIT: usize = 400;
 const STIFF_DECADES: f64 = 12.0;
 
 /// Which constants the correction may change.
-#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, clap::ValueEnum)]
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize)]
 #[serde(rename_all = "lowercase")]
 pub enum Adjust {
     /// Keep kf, change kr.
@@ -607,22 +608,6 @@ fn correct(network: &Network, steps: &[StepFinding], cycles: &[CycleFinding], ad
         adjust,
         steps: corrected,
         conflict,
-    }
-}
-
-/// Units of a rate constant of total order n with concentrations in mol/L and time in s.
-pub fn rate_constant_units(order: f64) -> String {
-    let power = 1.0 - order;
-    if power.abs() < 1e-12 {
-        "1/s".into()
-    } else if (power - 1.0).abs() < 1e-12 {
-        "mol/(L s)".into()
-    } else if (power + 1.0).abs() < 1e-12 {
-        "L/(mol s)".into()
-    } else if power < 0.0 && (power - power.round()).abs() < 1e-12 {
-        format!("L^{0}/(mol^{0} s)", -power.round() as i64)
-    } else {
-        format!("(mol/L)^{power}/s")
     }
 }
 

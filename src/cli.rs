@@ -49,8 +49,8 @@ pub struct CheckArgs {
     #[arg(long, value_name = "KJ_PER_MOL", default_value_t = crate::audit::DEFAULT_TOL_KJ)]
     pub tol_kj: f64,
     /// Which constants the proposed correction may change.
-    #[arg(long, value_enum, default_value_t = Adjust::Kr)]
-    pub adjust: Adjust,
+    #[arg(long, value_enum, default_value_t = AdjustArg::Kr)]
+    pub adjust: AdjustArg,
     /// Write the corrected network to this new file (the original is left untouched).
     #[arg(long, value_name = "FILE")]
     pub write_corrected: Option<PathBuf>,
@@ -101,11 +101,11 @@ pub struct RunArgs {
     #[arg(long, value_name = "T")]
     pub temperature: Option<String>,
     /// Time unit of tables and charts.
-    #[arg(long, value_enum, default_value_t = TimeUnit::S)]
-    pub time_unit: TimeUnit,
+    #[arg(long, value_enum, default_value_t = TimeUnitArg::S)]
+    pub time_unit: TimeUnitArg,
     /// Concentration unit of tables and charts.
-    #[arg(long, value_enum, default_value_t = ConcentrationUnit::MolPerL)]
-    pub conc_unit: ConcentrationUnit,
+    #[arg(long, value_enum, default_value_t = ConcentrationUnitArg::MolPerL)]
+    pub conc_unit: ConcentrationUnitArg,
     /// Also tabulate the state at these times (comma-separated; plain numbers are in the
     /// --time-unit, or give units such as "1.5 h") in table_at_times.csv.
     #[arg(long, value_name = "LIST")]
@@ -117,8 +117,8 @@ pub struct RunArgs {
     #[arg(long, value_name = "A,B,C")]
     pub species: Option<String>,
     /// Time axis of the charts.
-    #[arg(long, value_enum, default_value_t = TimeAxis::Auto)]
-    pub time_axis: TimeAxis,
+    #[arg(long, value_enum, default_value_t = TimeAxisArg::Auto)]
+    pub time_axis: TimeAxisArg,
     /// Replace results of an earlier run in the output folder.
     #[arg(long)]
     pub force: bool,
@@ -243,6 +243,12 @@ fn run_command(args: RunArgs) -> Result<String, Error> {
         report::refuse_existing(&out, report::RUN_FILES)?;
     }
     report::refuse_foreign(&out)?;
+    if args.until.is_some_and(|t| !(t > 0.0 && t.is_finite())) {
+        return Err(Error::Option {
+            option: "--until".into(),
+            message: "must be a positive number of seconds".into(),
+        });
+    }
     if args.max_seconds.is_some_and(|s| !(s > 0.0 && s.is_finite())) {
         return Err(Error::Option {
             option: "--max-seconds".into(),
@@ -257,26 +263,19 @@ fn run_command(args: RunArgs) -> Result<String, Error> {
         atol: args.atol,
         force_dense: None,
         units: OutputUnits {
-            time: args.time_unit,
-            concentration: args.conc_unit,
-        },
-        chart: ChartOptions {
-            time_axis: args.time_axis,
-            species: match &args.species {
-                Some(list) => Some(species_list(&network, list)?),
-                None => None,
-            },
+            time: args.time_unit.into(),
+            concentration: args.conc_unit.into(),
         },
         output_times: match &args.times {
             Some(list) => list
                 .split(',')
-                .map(|t| duration("--times", t, args.time_unit))
+                .map(|t| duration("--times", t, args.time_unit.into()))
                 .collect::<Result<Vec<f64>, Error>>()?,
             None => Vec::new(),
         },
         output_every: match &args.every {
             Some(text) => {
-                let every = duration("--every", text, args.time_unit)?;
+                let every = duration("--every", text, args.time_unit.into())?;
                 if every <= 0.0 {
                     return Err(Error::Option {
                         option: "--every".into(),
@@ -288,8 +287,15 @@ fn run_command(args: RunArgs) -> Result<String, Error> {
             None => None,
         },
     };
+    let chart = ChartOptions {
+        time_axis: args.time_axis.into(),
+        species: match &args.species {
+            Some(list) => Some(species_list(&network, list)?),
+            None => None,
+        },
+    };
     let result = run::run(&network, &settings)?;
-    let files = report::render_run(&result)?;
+    let files = report::render_run(&result, &chart)?;
     let written = report::write_all(&out, &files, args.force)?;
     Ok(report::terminal::render(&result, &written))
 }
@@ -313,7 +319,7 @@ fn check_command(args: CheckArgs) -> Result<Outcome, Error> {
         });
     }
     let network = Network::from_file_at(&args.case, temperature(&args.temperature)?)?;
-    let found = audit::audit(&network, args.tol_kj, args.adjust);
+    let found = audit::audit(&network, args.tol_kj, args.adjust.into());
     let mut text = if args.json {
         serde_json::to_string_pretty(&found).unwrap_or_default() + "\n"
     } else {
@@ -345,3 +351,47 @@ fn check_command(args: CheckArgs) -> Result<Outcome, Error> {
         exit_code: if found.consistent { 0 } else { 1 },
     })
 }
+
+/// Command-line spellings of the library's choices: the parser's traits stay here, so the
+/// library does not depend on the command line.
+macro_rules! choice {
+    ($(#[$doc:meta])* $arg:ident => $target:ty { $($(#[$attr:meta])* $variant:ident => $to:expr),+ $(,)? }) => {
+        $(#[$doc])*
+        #[derive(Debug, Clone, Copy, PartialEq, Eq, clap::ValueEnum)]
+        pub enum $arg {
+            $($(#[$attr])* $variant),+
+        }
+
+        impl From<$arg> for $target {
+            fn from(choice: $arg) -> $target {
+                match choice {
+                    $($arg::$variant => $to),+
+                }
+            }
+        }
+    };
+}
+
+choice!(
+    /// `--adjust`
+    AdjustArg => Adjust { Kr => Adjust::Kr, Kf => Adjust::Kf, Both => Adjust::Both }
+);
+choice!(
+    /// `--time-unit`
+    TimeUnitArg => TimeUnit { S => TimeUnit::S, Min => TimeUnit::Min, H => TimeUnit::H, D => TimeUnit::D }
+);
+choice!(
+    /// `--conc-unit`
+    ConcentrationUnitArg => ConcentrationUnit {
+        #[value(name = "mol/L")]
+        MolPerL => ConcentrationUnit::MolPerL,
+        #[value(name = "mmol/L")]
+        MmolPerL => ConcentrationUnit::MmolPerL,
+        #[value(name = "mol/m3")]
+        MolPerM3 => ConcentrationUnit::MolPerM3,
+    }
+);
+choice!(
+    /// `--time-axis`
+    TimeAxisArg => TimeAxis { Auto => TimeAxis::Auto, Linear => TimeAxis::Linear, Log => TimeAxis::Log }
+);

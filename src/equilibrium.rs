@@ -66,6 +66,21 @@ pub enum NoEquilibrium {
     },
 }
 
+impl NoEquilibrium {
+    /// A stable snake_case tag for scripts (the Display text is for people).
+    pub fn tag(&self) -> &'static str {
+        match self {
+            NoEquilibrium::OneWaySteps(_) => "one_way_steps",
+            NoEquilibrium::NonMassAction(_) => "non_mass_action",
+            NoEquilibrium::InconsistentCycle { .. } => "inconsistent_cycle",
+            NoEquilibrium::Infeasible(_) => "infeasible",
+            NoEquilibrium::PurePhaseUsedUp(_) => "pure_phase_used_up",
+            NoEquilibrium::PurePhaseReforms(_) => "pure_phase_reforms",
+            NoEquilibrium::NotConverged { .. } => "not_converged",
+        }
+    }
+}
+
 impl std::fmt::Display for NoEquilibrium {
     fn fmt(&self, f: &mut std::fmt::Formatter<'_>) -> std::fmt::Result {
         match self {

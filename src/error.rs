@@ -49,6 +49,9 @@ pub enum Error {
     NoEquilibrium(String),
     #[error("bad option {option}: {message}")]
     Option { option: String, message: String },
+    /// A library setting out of range (the command line checks its options before this).
+    #[error("invalid setting `{setting}`: {message}")]
+    Setting { setting: &'static str, message: String },
 }
 
 impl Error {
@@ -56,7 +59,11 @@ impl Error {
     /// command, 1 for a failure of the computation itself.
     pub fn exit_code(&self) -> u8 {
         match self {
-            Error::Input(_) | Error::OutputExists { .. } | Error::Option { .. } | Error::Read { .. } => 2,
+            Error::Input(_)
+            | Error::OutputExists { .. }
+            | Error::Option { .. }
+            | Error::Setting { .. }
+            | Error::Read { .. } => 2,
             Error::Write { .. } | Error::Integration { .. } | Error::NoEquilibrium(_) => 1,
         }
     }

@@ -9,7 +9,6 @@ use crate::integrate::{self, Options, Solution};
 use crate::kinetics::RateModel;
 use crate::network::Network;
 use crate::relaxation::{self, Mode};
-use crate::report::chart::ChartOptions;
 use crate::stoich::Stoichiometry;
 use crate::units::{ConcentrationUnit, TimeUnit};
 
@@ -27,8 +26,6 @@ pub struct RunSettings {
     pub force_dense: Option<bool>,
     /// Units of time and concentration in tables and charts.
     pub units: OutputUnits,
-    /// Time axis and species of the charts.
-    pub chart: ChartOptions,
     /// Extra output times for `table_at_times.csv`, s (empty for none).
     pub output_times: Vec<f64>,
     /// Also write `table_at_times.csv` rows every this many seconds up to the final time.
@@ -62,7 +59,6 @@ impl Default for RunSettings {
             atol: integrate::DEFAULT_ATOL,
             force_dense: None,
             units: OutputUnits::default(),
-            chart: ChartOptions::default(),
             output_times: Vec::new(),
             output_every: None,
             max_seconds: None,
@@ -131,8 +127,8 @@ impl RunResult {
 /// Integrates a network and analyses the trajectory.
 pub fn run(network: &Network, settings: &RunSettings) -> Result<RunResult, Error> {
     if settings.until.is_some_and(|t| !(t > 0.0 && t.is_finite())) {
-        return Err(Error::Option {
-            option: "--until".into(),
+        return Err(Error::Setting {
+            setting: "until",
             message: "must be a positive number of seconds".into(),
         });
     }

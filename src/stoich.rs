@@ -98,23 +98,7 @@ impl Stoichiometry {
     }
 }
 
-/// products minus reactants, as sorted sparse entries with zeros dropped.
-pub fn net_change(reactants: &[(usize, f64)], products: &[(usize, f64)]) -> Vec<(usize, f64)> {
-    let mut net: Vec<(usize, f64)> = Vec::new();
-    for (&(i, c), sign) in reactants
-        .iter()
-        .map(|e| (e, -1.0))
-        .chain(products.iter().map(|e| (e, 1.0)))
-    {
-        match net.iter_mut().find(|(j, _)| *j == i) {
-            Some(entry) => entry.1 += sign * c,
-            None => net.push((i, sign * c)),
-        }
-    }
-    net.retain(|&(_, c)| c != 0.0);
-    net.sort_by_key(|&(i, _)| i);
-    net
-}
+pub use crate::network::net_change;
 
 /// A sparse row: sorted (column, value) pairs.
 pub type Row = Vec<(usize, f64)>;

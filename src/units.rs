@@ -389,7 +389,7 @@ impl Parser<'_> {
 }
 
 /// Output time units.
-#[derive(Debug, Clone, Copy, PartialEq, Eq, clap::ValueEnum, serde::Serialize)]
+#[derive(Debug, Clone, Copy, PartialEq, Eq, serde::Serialize)]
 pub enum TimeUnit {
     S,
     Min,
@@ -418,13 +418,10 @@ impl TimeUnit {
 }
 
 /// Output concentration units.
-#[derive(Debug, Clone, Copy, PartialEq, Eq, clap::ValueEnum, serde::Serialize)]
+#[derive(Debug, Clone, Copy, PartialEq, Eq, serde::Serialize)]
 pub enum ConcentrationUnit {
-    #[value(name = "mol/L")]
     MolPerL,
-    #[value(name = "mmol/L")]
     MmolPerL,
-    #[value(name = "mol/m3")]
     MolPerM3,
 }
 
@@ -444,6 +441,22 @@ impl ConcentrationUnit {
             ConcentrationUnit::MmolPerL => "mmol/L",
             ConcentrationUnit::MolPerM3 => "mol/m3",
         }
+    }
+}
+
+/// Units of a rate constant of total order n with concentrations in mol/L and time in s.
+pub fn rate_constant_units(order: f64) -> String {
+    let power = 1.0 - order;
+    if power.abs() < 1e-12 {
+        "1/s".into()
+    } else if (power - 1.0).abs() < 1e-12 {
+        "mol/(L s)".into()
+    } else if (power + 1.0).abs() < 1e-12 {
+        "L/(mol s)".into()
+    } else if power < 0.0 && (power - power.round()).abs() < 1e-12 {
+        format!("L^{0}/(mol^{0} s)", -power.round() as i64)
+    } else {
+        format!("(mol/L)^{power}/s")
     }
 }
 

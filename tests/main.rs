@@ -3,6 +3,7 @@
 mod util;
 
 mod analytic;
+mod architecture;
 mod audit;
 mod cli;
 mod conditions;

@@ -220,3 +220,26 @@ fn chosen_species_units_axis_and_output_times() {
     assert_eq!(bad.status.code(), Some(2));
     assert!(String::from_utf8_lossy(&bad.stderr).contains("no species `Z`"));
 }
+
+#[test]
+fn summary_carries_stable_tags_beside_the_sentences() {
+    use kinequil::report::summary::Summary;
+    let case = |name: &str| {
+        let path = std::path::Path::new(env!("CARGO_MANIFEST_DIR"))
+            .join("cases")
+            .join(name);
+        let net = kinequil::network::Network::from_file(&path).unwrap();
+        let result = kinequil::run::run(&net, &kinequil::run::RunSettings::default()).unwrap();
+        serde_json::to_value(Summary::from_result(&result)).unwrap()
+    };
+    let demo = case("demo.toml");
+    assert_eq!(demo["stop_tag"], "equilibrium_detected");
+    assert_eq!(demo["equilibrium_tag"], "solved");
+    assert!(demo["stop_reason"]
+        .as_str()
+        .unwrap()
+        .starts_with("equilibrium detected at"));
+    let robertson = case("robertson.toml");
+    assert_eq!(robertson["stop_tag"], "horizon_reached");
+    assert_eq!(robertson["equilibrium_tag"], "one_way_steps");
+}

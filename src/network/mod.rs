@@ -544,7 +544,7 @@ impl<'a> Reader<'a> {
             None => None,
         };
         // Δn over the species whose concentrations enter K, and over the gases alone.
-        let net = crate::stoich::net_change(&reactants, &products);
+        let net = net_change(&reactants, &products);
         let delta_n: f64 = net
             .iter()
             .filter(|e| species[e.0].in_rate_laws())
@@ -818,7 +818,7 @@ impl<'a> Reader<'a> {
                     "`{text}` has units of {given}, but a step of order {} needs {} (mol/L and s: {})",
                     trim_order(order),
                     expected,
-                    crate::audit::rate_constant_units(order)
+                    crate::units::rate_constant_units(order)
                 ),
             )
         };
@@ -1068,6 +1068,24 @@ struct EquilibriumConstant {
     kc: f64,
     source: String,
     enthalpy: Option<f64>,
+}
+
+/// products minus reactants, as sorted sparse entries with zeros dropped.
+pub fn net_change(reactants: &[(usize, f64)], products: &[(usize, f64)]) -> Vec<(usize, f64)> {
+    let mut net: Vec<(usize, f64)> = Vec::new();
+    for (&(i, c), sign) in reactants
+        .iter()
+        .map(|e| (e, -1.0))
+        .chain(products.iter().map(|e| (e, 1.0)))
+    {
+        match net.iter_mut().find(|(j, _)| *j == i) {
+            Some(entry) => entry.1 += sign * c,
+            None => net.push((i, sign * c)),
+        }
+    }
+    net.retain(|&(_, c)| c != 0.0);
+    net.sort_by_key(|&(i, _)| i);
+    net
 }
 
 /// A value for a message: overflow and underflow said in words, never `inf` or `NaN`.

@@ -16,7 +16,7 @@ const MAX_STEPS: usize = 6;
 const GREY: usize = 8;
 
 /// How the time axis is chosen.
-#[derive(Debug, Clone, Copy, PartialEq, Eq, Default, clap::ValueEnum)]
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Default)]
 pub enum TimeAxis {
     /// Logarithmic when the approach spans more than three decades, else linear.
     #[default]
@@ -34,8 +34,8 @@ pub struct ChartOptions {
 }
 
 /// Every chart of a run: (file stem, figure). The approach chart needs an equilibrium.
-pub fn figures(result: &RunResult) -> Vec<(&'static str, Figure)> {
-    let frame = Frame::new(result);
+pub fn figures(result: &RunResult, options: &ChartOptions) -> Vec<(&'static str, Figure)> {
+    let frame = Frame::new(result, options);
     let mut out = vec![("concentrations", concentrations(result, &frame))];
     if let Some(figure) = approach(result, &frame) {
         out.push(("approach", figure));
@@ -62,13 +62,13 @@ struct Frame {
 }
 
 impl Frame {
-    fn new(result: &RunResult) -> Frame {
+    fn new(result: &RunResult, options: &ChartOptions) -> Frame {
         let times = output_times(result);
         let end = result.final_time;
         let first_positive = times.iter().copied().find(|&t| t > 0.0).unwrap_or(end);
         let (active_start, active_end) = active_span(result, &times);
         let spans_decades = active_start > 0.0 && active_end / active_start > 1e3;
-        let log_time = match result.settings.chart.time_axis {
+        let log_time = match options.time_axis {
             TimeAxis::Auto => spans_decades,
             TimeAxis::Linear => false,
             TimeAxis::Log => true,
@@ -88,7 +88,7 @@ impl Frame {
         } else {
             end
         };
-        let chosen = match &result.settings.chart.species {
+        let chosen = match &options.species {
             Some(list) => list.clone(),
             None => largest_changes(result),
         };

@@ -72,7 +72,10 @@ pub fn utc_now() -> String {
 }
 
 /// Renders every output of a run in memory: (file name, contents).
-pub fn render_run(result: &RunResult) -> Result<Vec<(String, Vec<u8>)>, Error> {
+pub fn render_run(
+    result: &RunResult,
+    chart_options: &chart::ChartOptions,
+) -> Result<Vec<(String, Vec<u8>)>, Error> {
     let render_error = |name: &str, message: String| Error::Write {
         path: name.into(),
         message,
@@ -97,7 +100,7 @@ pub fn render_run(result: &RunResult) -> Result<Vec<(String, Vec<u8>)>, Error> {
         files.push(("table_at_times.csv".into(), table::times_csv(result).into_bytes()));
     }
     let mut charts = Vec::new();
-    for (stem, figure) in chart::figures(result) {
+    for (stem, figure) in chart::figures(result, chart_options) {
         let (svg, png) = figure.render().map_err(|m| render_error(stem, m))?;
         charts.push((figure.title.clone(), svg.clone()));
         files.push((format!("{stem}.svg"), svg.into_bytes()));

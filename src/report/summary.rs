@@ -27,13 +27,18 @@ pub struct Summary {
     /// Composition at `final_time`, mol/L.
     #[serde(rename = "final")]
     pub final_state: Map<String, serde_json::Value>,
+    /// Why the integration ended, for people.
     pub stop_reason: String,
+    /// The same as a stable tag for scripts (see `stop_tag`).
+    pub stop_tag: &'static str,
     pub equilibrium_detected_at: Option<f64>,
     pub time_to_equilibrium: Vec<Settling>,
     /// The equilibrium solved directly (species → mol/L), null where none exists.
     pub equilibrium: Option<Map<String, serde_json::Value>>,
     /// "solved", or why no equilibrium exists.
     pub equilibrium_status: String,
+    /// The same as a stable tag for scripts: `solved` or the reason (`NoEquilibrium::tag`).
+    pub equilibrium_tag: &'static str,
     pub equilibrium_solver: Option<EquilibriumSolver>,
     /// Largest relative difference between the integrated end state and the solved equilibrium.
     pub integrated_vs_solved_max_relative_difference: Option<f64>,
@@ -118,6 +123,24 @@ fn by_species(names: &[String], values: &[f64]) -> Map<String, serde_json::Value
         .zip(values)
         .map(|(n, v)| (n.clone(), serde_json::json!(v)))
         .collect()
+}
+
+/// A stable snake_case tag for why the integration ended: `equilibrium_detected`,
+/// `steady_state_not_equilibrium`, `reached_requested_time`, `horizon_reached`, `step_budget` or
+/// `time_budget`.
+pub fn stop_tag(result: &RunResult) -> &'static str {
+    match (
+        result.solution.stop,
+        result.solution.equilibrium_at,
+        &result.solved,
+    ) {
+        (_, Some(_), Err(_)) => "steady_state_not_equilibrium",
+        (StopReason::Equilibrium, _, _) => "equilibrium_detected",
+        (StopReason::ReachedTime, _, _) => "reached_requested_time",
+        (StopReason::MaxTime, _, _) => "horizon_reached",
+        (StopReason::MaxSteps, _, _) => "step_budget",
+        (StopReason::TimeBudget, _, _) => "time_budget",
+    }
 }
 
 pub fn stop_description(result: &RunResult) -> String {
@@ -249,6 +272,7 @@ impl Summary {
             initial: by_species(&names, &trajectory.states[0]),
             final_state: by_species(&names, &result.final_state),
             stop_reason: stop_description(result),
+            stop_tag: stop_tag(result),
             equilibrium_detected_at: result.solution.equilibrium_at,
             time_to_equilibrium: result.settling.clone(),
             equilibrium: result
@@ -259,6 +283,10 @@ impl Summary {
             equilibrium_status: match &result.solved {
                 Ok(_) => "solved".into(),
                 Err(why) => why.to_string(),
+            },
+            equilibrium_tag: match &result.solved {
+                Ok(_) => "solved",
+                Err(why) => why.tag(),
             },
             equilibrium_solver: result.solved.as_ref().ok().map(|e| EquilibriumSolver {
                 method: "Newton on the dual of the free-energy minimisation (log-concentrations)",
