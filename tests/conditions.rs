@@ -259,3 +259,81 @@ Kp = 0.1485
     // At equilibrium p(NO2)²/p(N2O4) = Kp (bar, standard 1 bar): 1e-6 for the run's tolerance.
     assert!(rel(partial[1].1.powi(2) / partial[0].1, 0.1485) < 1e-6);
 }
+
+const SWEEPABLE: &str = r#"temperature = "50 degC"
+[species]
+A = 1.0
+B = 0.0
+G = { initial = "1 bar", phase = "gas" }
+H = { initial = 0.0, phase = "gas" }
+
+[[reaction]]
+equation = "A <=> B"
+kf = { A = 1.0e8, Ea = "60 kJ/mol" }
+K = { value = 4.0, at = "25 degC", dH = "-20 kJ/mol" }
+
+[[reaction]]
+equation = "G <=> H"
+kf = 1.0
+kr = 2.0
+"#;
+
+#[test]
+fn one_network_evaluates_at_any_temperature_without_rereading() {
+    // The network read once and evaluated at 70 degC equals the file read at 70 degC (one code
+    // path, bit for bit), and its constants follow the closed forms: Arrhenius
+    // k = A exp(−Ea/RT), van 't Hoff ln K(T) = ln K(T0) − dH/R (1/T − 1/T0), and a partial
+    // pressure c = p/(RT) (textbook relations; R from CODATA 2018).
+    let t = 343.15;
+    let read_once = network(SWEEPABLE);
+    let evaluated = read_once.at_temperature(t).unwrap();
+    let reread = Network::from_text_at(SWEEPABLE, Path::new("inline.toml"), Some(t)).unwrap();
+    assert_eq!(evaluated.reactions, reread.reactions);
+    assert_eq!(evaluated.species, reread.species);
+    let r = &evaluated.reactions[0];
+    let kf = 1.0e8 * (-60_000.0 / (GAS_CONSTANT * t)).exp();
+    let k = 4.0 * (20_000.0 / GAS_CONSTANT * (1.0 / t - 1.0 / 298.15)).exp();
+    // 1e-14 relative: the same arithmetic in another order.
+    assert!(rel(r.kf, kf) < 1e-14 && rel(r.k_given.unwrap(), k) < 1e-14);
+    assert!(rel(r.kr, kf / k) < 1e-14);
+    assert!(rel(evaluated.species[2].initial, 1e5 / (1000.0 * GAS_CONSTANT * t)) < 1e-14);
+    // Out of the model's range, the evaluation says so as the reader would.
+    let err = read_once.at_temperature(60.0).unwrap_err();
+    assert!(err.to_string().contains("outside"), "{err}");
+}
+
+#[test]
+fn constants_scale_by_factors_in_their_own_form() {
+    use kinequil::network::Constant;
+    let base = network(SWEEPABLE);
+    let (kf, kr, k) = (
+        base.reactions[0].kf,
+        base.reactions[0].kr,
+        base.reactions[0].k_given.unwrap(),
+    );
+    // kf × 2 with kr defined by K: K stays, so kr doubles with kf (by definition kr = kf/K).
+    let n = base.with_factor(0, Constant::Kf, 2.0).unwrap();
+    assert!(rel(n.reactions[0].kf, 2.0 * kf) < 1e-15 && rel(n.reactions[0].kr, 2.0 * kr) < 1e-15);
+    assert!(n.reactions[0].kf_arrhenius.is_some(), "Arrhenius stays Arrhenius");
+    // kr × 2 on a K-defined kr goes through K (halved); kf stays.
+    let n = base.with_factor(0, Constant::Kr, 2.0).unwrap();
+    assert!(rel(n.reactions[0].kr, 2.0 * kr) < 1e-14 && n.reactions[0].kf == kf);
+    assert!(rel(n.reactions[0].k_given.unwrap(), k / 2.0) < 1e-14);
+    // K × 3 holds at every temperature (the van 't Hoff value is scaled).
+    let n = base
+        .with_factor(0, Constant::K, 3.0)
+        .unwrap()
+        .at_temperature(360.0)
+        .unwrap();
+    let m = base.at_temperature(360.0).unwrap();
+    assert!(
+        rel(
+            n.reactions[0].k_given.unwrap(),
+            3.0 * m.reactions[0].k_given.unwrap()
+        ) < 1e-14
+    );
+    // An explicit kr scales itself.
+    let n = base.with_factor(1, Constant::Kr, 0.5).unwrap();
+    assert_eq!(n.reactions[1].kr, 1.0);
+    assert!(base.with_factor(1, Constant::K, 2.0).is_err(), "step 2 has no K");
+}

@@ -6,6 +6,9 @@
 
 mod equation;
 mod formula;
+mod given;
+
+pub use given::{AmountGiven, Constant, KForm, KGiven, Origin, RateGiven};
 
 use std::borrow::Cow;
 use std::ops::Range;
@@ -60,8 +63,11 @@ pub enum Phase {
 #[derive(Debug, Clone, PartialEq)]
 pub struct Species {
     pub name: String,
-    /// Initial concentration, mol/L.
+    /// Initial concentration, mol/L, at the network's temperature.
     pub initial: f64,
+    /// The initial amount as given (a partial pressure depends on the temperature).
+    pub initial_spec: AmountGiven,
+    pub initial_origin: Origin,
     pub phase: Phase,
     /// Absolute integration tolerance for this species, mol/L, when the file sets one.
     pub atol: Option<f64>,
@@ -133,6 +139,12 @@ pub struct Reaction {
     /// Arrhenius parameters behind kf and kr, when given that way.
     pub kf_arrhenius: Option<Arrhenius>,
     pub kr_arrhenius: Option<Arrhenius>,
+    /// The constants as given, from which kf, kr and K are evaluated at any temperature.
+    pub kf_spec: RateGiven,
+    pub kf_origin: Origin,
+    pub kr_spec: Option<RateGiven>,
+    pub kr_origin: Origin,
+    pub k_spec: Option<KGiven>,
     /// Standard Gibbs energy of reaction as given in the file, kJ/mol.
     pub gibbs: Option<f64>,
     /// (species index, order) of each factor of the forward rate; pure phases left out.
@@ -282,8 +294,8 @@ impl<'a> Reader<'a> {
             ));
         }
         let temperature = self.temperature_override.unwrap_or(temperature);
-        let species = self.species(root.get("species"), temperature)?;
-        let reactions = self.reactions(root.get("reaction"), &species, temperature)?;
+        let species = self.species(root.get("species"))?;
+        let reactions = self.reactions(root.get("reaction"), &species)?;
         let title = if title.is_empty() {
             self.file
                 .file_stem()
@@ -292,17 +304,19 @@ impl<'a> Reader<'a> {
         } else {
             title
         };
-        Ok(Network {
+        let mut network = Network {
             source: self.file.to_path_buf(),
             source_text: self.text.to_string(),
             title,
             temperature,
             species,
             reactions,
-        })
+        };
+        network.evaluate()?;
+        Ok(network)
     }
 
-    fn species(&self, value: Option<&Value<'_>>, t: f64) -> Result<Vec<Species>, InputError> {
+    fn species(&self, value: Option<&Value<'_>>) -> Result<Vec<Species>, InputError> {
         let Some(value) = value else {
             return Err(self.error(
                 None,
@@ -328,6 +342,11 @@ impl<'a> Reader<'a> {
             let mut item = Species {
                 name,
                 initial: 0.0,
+                initial_spec: AmountGiven::Concentration(0.0),
+                initial_origin: Origin {
+                    line: Some(self.line_of(key.span().start)),
+                    field: field.clone(),
+                },
                 phase: Phase::Dissolved,
                 atol: None,
                 formula: None,
@@ -393,19 +412,18 @@ impl<'a> Reader<'a> {
                 } else {
                     field.clone()
                 };
-                item.initial = self.initial_amount(v, &sub, item.phase, t)?;
+                item.initial_spec = self.initial_amount(v, &sub, item.phase)?;
+                item.initial_origin = Origin {
+                    line: Some(self.line_of(v.span().start)),
+                    field: sub.clone(),
+                };
             }
             species.push(item);
         }
         Ok(species)
     }
 
-    fn reactions(
-        &self,
-        value: Option<&Value<'_>>,
-        species: &[Species],
-        t: f64,
-    ) -> Result<Vec<Reaction>, InputError> {
+    fn reactions(&self, value: Option<&Value<'_>>, species: &[Species]) -> Result<Vec<Reaction>, InputError> {
         let Some(value) = value else {
             return Err(self.error(
                 None,
@@ -426,17 +444,11 @@ impl<'a> Reader<'a> {
         items
             .iter()
             .enumerate()
-            .map(|(i, item)| self.reaction(item, &format!("reaction[{}]", i + 1), species, t))
+            .map(|(i, item)| self.reaction(item, &format!("reaction[{}]", i + 1), species))
             .collect()
     }
 
-    fn reaction(
-        &self,
-        item: &Value<'_>,
-        field: &str,
-        species: &[Species],
-        t: f64,
-    ) -> Result<Reaction, InputError> {
+    fn reaction(&self, item: &Value<'_>, field: &str, species: &[Species]) -> Result<Reaction, InputError> {
         let DeValue::Table(table) = item.get_ref() else {
             return Err(self.error(Some(item.span()), field, "must be a table with equation and kf"));
         };
@@ -538,10 +550,21 @@ impl<'a> Reader<'a> {
                 "missing: every reaction needs a forward rate constant kf",
             ));
         };
-        let (kf, kf_arrhenius) = self.rate_constant(kf_value, &kf_field, forward_order, t)?;
-        let kr_read = match table.get("kr") {
-            Some(v) => Some(self.rate_constant(v, &format!("{field}.kr"), reverse_order, t)?),
-            None => None,
+        let origin = |v: &Value<'_>, field: String| Origin {
+            line: Some(self.line_of(v.span().start)),
+            field,
+        };
+        let kf_spec = self.rate_constant(kf_value, &kf_field, forward_order)?;
+        let kf_origin = origin(kf_value, kf_field.clone());
+        let (kr_spec, kr_origin) = match table.get("kr") {
+            Some(v) => {
+                let kr_field = format!("{field}.kr");
+                (
+                    Some(self.rate_constant(v, &kr_field, reverse_order)?),
+                    origin(v, kr_field),
+                )
+            }
+            None => (None, Origin::default()),
         };
         // Δn over the species whose concentrations enter K, and over the gases alone.
         let net = net_change(&reactants, &products);
@@ -556,7 +579,7 @@ impl<'a> Reader<'a> {
             .map(|e| e.1)
             .sum();
         let all_gas = net.iter().all(|e| species[e.0].phase != Phase::Dissolved);
-        let equilibrium = match (table.get("K"), table.get("Kp")) {
+        let k_spec = match (table.get("K"), table.get("Kp")) {
             (Some(_), Some(v)) => {
                 return Err(self.error(
                     Some(v.span()),
@@ -565,7 +588,7 @@ impl<'a> Reader<'a> {
                 ));
             }
             (Some(v), None) => {
-                Some(self.equilibrium_constant(v, &format!("{field}.K"), false, delta_n, delta_n_gas, t)?)
+                Some(self.equilibrium_constant(v, &format!("{field}.K"), false, delta_n, delta_n_gas)?)
             }
             (None, Some(v)) => {
                 if !all_gas {
@@ -575,81 +598,50 @@ impl<'a> Reader<'a> {
                         "Kp needs a gas-phase step (species with phase = \"gas\", or pure phases)",
                     ));
                 }
-                Some(self.equilibrium_constant(v, &format!("{field}.Kp"), true, delta_n, delta_n_gas, t)?)
+                Some(self.equilibrium_constant(v, &format!("{field}.Kp"), true, delta_n, delta_n_gas)?)
             }
             (None, None) => None,
         };
-        if let (Some(k), Some(v)) = (&equilibrium, table.get("K").or(table.get("Kp"))) {
-            let k_field = format!("{field}.{}", if table.get("K").is_some() { "K" } else { "Kp" });
-            let kc = k.kc;
-            if !(limits::MIN_CONSTANT..=limits::MAX_EQUILIBRIUM_CONSTANT).contains(&kc) {
+        if parsed.reversible {
+            if kr_spec.is_none() && k_spec.is_none() {
                 return Err(self.error(
-                    Some(v.span()),
-                    &k_field,
-                    format!(
-                        "evaluates to Kc = {} at {t} K, outside {:e} to {:e}: the step is one-way in practice; write it with `=>`",
-                        finite_or_word(kc),
-                        limits::MIN_CONSTANT,
-                        limits::MAX_EQUILIBRIUM_CONSTANT
-                    ),
+                    Some(eq_value.span()),
+                    field,
+                    "a reversible step (`<=>`) needs either kr or the equilibrium constant K (or Kp)",
                 ));
             }
-            if kr_read.is_none() && parsed.reversible {
-                let kr = kf / kc;
-                if kr > limits::MAX_RATE_CONSTANT || (kr > 0.0 && kr < limits::MIN_CONSTANT) {
-                    return Err(self.error(
-                        Some(v.span()),
-                        &k_field,
-                        format!(
-                            "makes kr = kf/K = {kr:e}, outside {:e} to {:e} (common practice)",
-                            limits::MIN_CONSTANT,
-                            limits::MAX_RATE_CONSTANT
-                        ),
-                    ));
-                }
-            }
+        } else if let Some(key) = ["kr", "K", "Kp"].into_iter().find(|k| table.get(*k).is_some()) {
+            let sub = format!("{field}.{key}");
+            return Err(self.error(
+                table.get(key).map(|v| v.span()),
+                &sub,
+                "a one-way step (`=>`) takes only kf; write `<=>` for a reversible step",
+            ));
         }
-        let (kr, kr_arrhenius) = if parsed.reversible {
-            match (kr_read, &equilibrium) {
-                (Some(kr), _) => kr,
-                (None, Some(k)) => (kf / k.kc, None),
-                (None, None) => {
-                    return Err(self.error(
-                        Some(eq_value.span()),
-                        field,
-                        "a reversible step (`<=>`) needs either kr or the equilibrium constant K (or Kp)",
-                    ))
-                }
-            }
-        } else {
-            if let Some(key) = ["kr", "K", "Kp"].into_iter().find(|k| table.get(*k).is_some()) {
-                let sub = format!("{field}.{key}");
-                return Err(self.error(
-                    table.get(key).map(|v| v.span()),
-                    &sub,
-                    "a one-way step (`=>`) takes only kf; write `<=>` for a reversible step",
-                ));
-            }
-            (0.0, None)
-        };
         let gibbs = match table.get("dG") {
             Some(v) => Some(self.energy_kj(v, &format!("{field}.dG"))?),
             None => None,
         };
+        // The numbers (kf, kr, K at the run temperature) are filled in by `Network::evaluate`.
         Ok(Reaction {
             equation: equation.to_string(),
             line,
             reactants,
             products,
             reversible: parsed.reversible,
-            kf,
-            kr,
-            k_given: equilibrium.as_ref().map(|k| k.kc),
+            kf: 0.0,
+            kr: 0.0,
+            k_given: None,
             kr_given: table.get("kr").is_some(),
-            k_source: equilibrium.as_ref().map(|k| k.source.clone()),
-            enthalpy: equilibrium.as_ref().and_then(|k| k.enthalpy),
-            kf_arrhenius,
-            kr_arrhenius,
+            k_source: None,
+            enthalpy: None,
+            kf_arrhenius: None,
+            kr_arrhenius: None,
+            kf_spec,
+            kf_origin,
+            kr_spec,
+            kr_origin,
+            k_spec,
             gibbs,
             forward_orders,
             reverse_orders,
@@ -749,15 +741,17 @@ impl<'a> Reader<'a> {
         value: &Value<'_>,
         field: &str,
         phase: Phase,
-        t: f64,
-    ) -> Result<f64, InputError> {
+    ) -> Result<AmountGiven, InputError> {
         let c = match value.get_ref() {
             DeValue::String(text) => {
                 let q = parse_quantity(text).map_err(|m| self.error(Some(value.span()), field, m))?;
                 if q.dimension.same(Dimension::concentration()) {
                     q.value
                 } else if q.dimension.same(Dimension::PRESSURE) && phase == Phase::Gas {
-                    q.value / (1000.0 * GAS_CONSTANT * t)
+                    if q.value < 0.0 {
+                        return Err(self.error(Some(value.span()), field, "a pressure must not be negative"));
+                    }
+                    return Ok(AmountGiven::PartialPressure(q.value.abs()));
                 } else {
                     let expected = if phase == Phase::Gas {
                         "a concentration or a partial pressure"
@@ -776,39 +770,12 @@ impl<'a> Reader<'a> {
         if c < 0.0 {
             return Err(self.error(Some(value.span()), field, "a concentration must not be negative"));
         }
-        let c = c.abs(); // -0.0 is zero
-        if c > limits::MAX_AMOUNT {
-            return Err(self.error(
-                Some(value.span()),
-                field,
-                format!(
-                    "{c:e} mol/L is above {:e} mol/L, denser than any substance (common practice)",
-                    limits::MAX_AMOUNT
-                ),
-            ));
-        }
-        if c > 0.0 && c < limits::MIN_AMOUNT {
-            return Err(self.error(
-                Some(value.span()),
-                field,
-                format!(
-                    "{c:e} mol/L is below {:e} mol/L, less than one molecule in a cubic kilometre: write 0",
-                    limits::MIN_AMOUNT
-                ),
-            ));
-        }
-        Ok(c)
+        Ok(AmountGiven::Concentration(c.abs())) // -0.0 is zero
     }
 
     /// A rate constant of the given total order at temperature t: a number (internal units), a
     /// string with units, or Arrhenius parameters `{ A = ..., Ea = ..., n = ... }`.
-    fn rate_constant(
-        &self,
-        value: &Value<'_>,
-        field: &str,
-        order: f64,
-        t: f64,
-    ) -> Result<(f64, Option<Arrhenius>), InputError> {
+    fn rate_constant(&self, value: &Value<'_>, field: &str, order: f64) -> Result<RateGiven, InputError> {
         let expected = Dimension::rate_constant(order);
         let units_error = |text: &str, given: Dimension| {
             self.error(
@@ -863,8 +830,7 @@ impl<'a> Reader<'a> {
                     Some(v) => self.number(v, &format!("{field}.n"))?,
                     None => 0.0,
                 };
-                let arrhenius = Arrhenius { a, ea, n };
-                (arrhenius.at(t), Some(arrhenius))
+                (a, Some(Arrhenius { a, ea, n }))
             }
             _ => (self.number(value, field)?, None),
         };
@@ -872,19 +838,10 @@ impl<'a> Reader<'a> {
             return Err(self.error(Some(value.span()), field, "must not be negative"));
         }
         let k = k.abs(); // -0.0 is zero
-        if !k.is_finite() || k > limits::MAX_RATE_CONSTANT || (k > 0.0 && k < limits::MIN_CONSTANT) {
-            return Err(self.error(
-                Some(value.span()),
-                field,
-                format!(
-                    "evaluates to {} at {t} K, outside {:e} to {:e} (common practice; mol/L and s)",
-                    finite_or_word(k),
-                    limits::MIN_CONSTANT,
-                    limits::MAX_RATE_CONSTANT
-                ),
-            ));
-        }
-        Ok((k, arrhenius))
+        Ok(match arrhenius {
+            Some(arrhenius) => RateGiven::Arrhenius(Arrhenius { a: k, ..arrhenius }),
+            None => RateGiven::Value(k),
+        })
     }
 
     /// K (Kc, concentration-based) or Kp, in any of its forms, evaluated as Kc at temperature t.
@@ -895,8 +852,16 @@ impl<'a> Reader<'a> {
         is_kp: bool,
         delta_n: f64,
         delta_n_gas: f64,
-        t: f64,
-    ) -> Result<EquilibriumConstant, InputError> {
+    ) -> Result<KGiven, InputError> {
+        let given = |form: KForm| KGiven {
+            form,
+            is_kp,
+            delta_n_gas,
+            origin: Origin {
+                line: Some(self.line_of(value.span().start)),
+                field: field.to_string(),
+            },
+        };
         let name = if is_kp { "Kp" } else { "K" };
         // The "native" value: Kc for K, the standard (1 bar) Kp° for Kp.
         let native = |v: &Value<'_>, sub: &str| -> Result<f64, InputError> {
@@ -931,24 +896,8 @@ impl<'a> Reader<'a> {
             }
             Ok(x)
         };
-        let to_kc = |native: f64| {
-            if is_kp {
-                kc_from_standard(native, delta_n_gas, t)
-            } else {
-                native
-            }
-        };
         let DeValue::Table(parts) = value.get_ref() else {
-            let x = native(value, field)?;
-            return Ok(EquilibriumConstant {
-                kc: to_kc(x),
-                source: if is_kp {
-                    format!("Kp = {x} (standard, 1 bar)")
-                } else {
-                    format!("K = {x}")
-                },
-                enthalpy: None,
-            });
+            return Ok(given(KForm::Value(native(value, field)?)));
         };
         for (key, _) in parts.iter() {
             if !["value", "at", "dH", "dS"].contains(&key.get_ref().as_ref()) {
@@ -981,40 +930,17 @@ impl<'a> Reader<'a> {
                 )
             })
             .transpose()?;
-        let rt = GAS_CONSTANT * t;
         match (parts.get("value"), dh, ds) {
             (Some(v), dh, None) => {
-                let x = native(v, &format!("{field}.value"))?;
-                let (x_t, source) = match (at, dh) {
-                    (Some(at), Some(dh)) => (
-                        x * (-dh * 1000.0 / GAS_CONSTANT * (1.0 / t - 1.0 / at)).exp(),
-                        format!("{name} = {x} at {at} K, van 't Hoff with dH = {dh} kJ/mol"),
-                    ),
-                    (Some(at), None) if (at - t).abs() > 1e-9 => {
-                        return Err(self.error(
-                            Some(value.span()),
-                            field,
-                            format!(
-                                "{name} is given at {at} K but the run is at {t} K: add dH to carry it over"
-                            ),
-                        ))
-                    }
-                    _ => (x, format!("{name} = {x}")),
-                };
-                Ok(EquilibriumConstant {
-                    kc: to_kc(x_t),
-                    source,
-                    enthalpy: dh,
-                })
+                let value = native(v, &format!("{field}.value"))?;
+                Ok(given(match (at, dh) {
+                    (Some(at), Some(dh)) => KForm::VantHoff { value, at, dh },
+                    (Some(at), None) => KForm::ValueAt { value, at },
+                    (None, Some(dh)) => KForm::ValueWithEnthalpy { value, dh },
+                    (None, None) => KForm::Value(value),
+                }))
             }
-            (None, Some(dh), Some(ds)) => {
-                let k0 = (-(dh * 1000.0 - t * ds) / rt).exp();
-                Ok(EquilibriumConstant {
-                    kc: kc_from_standard(k0, delta_n_gas, t),
-                    source: format!("{name} from dH = {dh} kJ/mol, dS = {ds} J/(mol K)"),
-                    enthalpy: Some(dh),
-                })
-            }
+            (None, Some(dh), Some(ds)) => Ok(given(KForm::FromEnthalpyEntropy { dh, ds })),
             _ => Err(self.error(
                 Some(value.span()),
                 field,
@@ -1060,14 +986,6 @@ impl<'a> Reader<'a> {
             )),
         }
     }
-}
-
-/// An equilibrium constant as read: Kc at the run temperature, how it was given, and the
-/// enthalpy of reaction when the data include it.
-struct EquilibriumConstant {
-    kc: f64,
-    source: String,
-    enthalpy: Option<f64>,
 }
 
 /// products minus reactants, as sorted sparse entries with zeros dropped.
