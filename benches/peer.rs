@@ -12,20 +12,23 @@ use std::time::Instant;
 
 use kinequil::integrate::{integrate, Options};
 use kinequil::kinetics::RateModel;
-use kinequil::network::Network;
+use kinequil::network::{Network, NetworkBuilder};
 use kinequil::stoich::Stoichiometry;
 
 fn nets_dir() -> PathBuf {
     Path::new(env!("CARGO_MANIFEST_DIR")).join("../shared/bench/nets")
 }
 
-/// The JSON network as a kinequil network file.
-fn to_toml(net: &serde_json::Value) -> String {
-    let mut text = String::from("[species]\n");
+/// The JSON network, built through the library's builder (no text format in between).
+fn build(net: &serde_json::Value, name: &str) -> Network {
+    let mut builder = NetworkBuilder::new(name);
     for s in net["species"].as_array().unwrap() {
-        let name = s.as_str().unwrap();
-        let c0 = net["initial"].get(name).and_then(|v| v.as_f64()).unwrap_or(0.0);
-        text += &format!("{name} = {c0:e}\n");
+        let species = s.as_str().unwrap();
+        let c0 = net["initial"]
+            .get(species)
+            .and_then(|v| v.as_f64())
+            .unwrap_or(0.0);
+        builder = builder.species(species, c0);
     }
     let side = |m: &serde_json::Value| {
         let terms: Vec<String> = m
@@ -43,17 +46,13 @@ fn to_toml(net: &serde_json::Value) -> String {
     for r in net["reactions"].as_array().unwrap() {
         let kr = r["kr"].as_f64().unwrap();
         let arrow = if kr > 0.0 { "<=>" } else { "=>" };
-        text += &format!(
-            "\n[[reaction]]\nequation = \"{} {arrow} {}\"\nkf = {:e}\n",
-            side(&r["reactants"]),
-            side(&r["products"]),
-            r["kf"].as_f64().unwrap()
-        );
+        let equation = format!("{} {arrow} {}", side(&r["reactants"]), side(&r["products"]));
+        builder = builder.reaction(&equation, r["kf"].as_f64().unwrap());
         if kr > 0.0 {
-            text += &format!("kr = {kr:e}\n");
+            builder = builder.kr(kr);
         }
     }
-    text
+    builder.build().unwrap_or_else(|e| panic!("{e}"))
 }
 
 fn main() {
@@ -81,7 +80,7 @@ fn main() {
             continue;
         }
         let json: serde_json::Value = serde_json::from_str(&std::fs::read_to_string(&path).unwrap()).unwrap();
-        let network = Network::from_text(&to_toml(&json), &path).unwrap_or_else(|e| panic!("{e}"));
+        let network = build(&json, &name);
         let t_end = json["t_end"].as_f64().unwrap();
         let stoich = Stoichiometry::new(&network);
         let model = RateModel::new(&network);

@@ -66,6 +66,8 @@ pub enum NoEquilibrium {
     },
 }
 
+impl std::error::Error for NoEquilibrium {}
+
 impl NoEquilibrium {
     /// A stable snake_case tag for scripts (the Display text is for people).
     pub fn tag(&self) -> &'static str {

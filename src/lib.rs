@@ -3,6 +3,14 @@
 //! Data flows one way: a network file is read into a [`network::Network`], its
 //! [`stoich::Stoichiometry`] and [`kinetics::RateModel`] are built, [`integrate`] runs the stiff
 //! integration, [`analysis`] derives time to equilibrium, and [`report`] writes the files.
+//!
+//! Entry points for using kinequil as a library:
+//! - a network: [`network::Network::from_file`], or [`network::NetworkBuilder`] in code;
+//!   [`network::Network::at_temperature`] and [`network::Network::with_factor`] give the same
+//!   network at another temperature or with a constant scaled, without reading text again;
+//! - a run (integration to equilibrium, times to equilibrium, the solve and the audit):
+//!   [`run::run`] with [`run::RunSettings`];
+//! - the equilibrium alone: [`equilibrium::solve`]; the consistency audit: [`audit::audit`].
 
 pub mod analysis;
 pub mod audit;

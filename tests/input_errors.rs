@@ -122,3 +122,31 @@ fn every_bad_input_names_file_line_and_field() {
         assert!(shown.starts_with("cases/bad.toml"), "{case}: {shown}");
     }
 }
+
+#[test]
+fn networks_built_in_code_are_checked_like_files() {
+    use kinequil::network::NetworkBuilder;
+    let err = |b: NetworkBuilder| b.build().unwrap_err().to_string();
+    let two = || NetworkBuilder::new("t").species("A", 1.0).species("B", 0.0);
+    assert!(err(two().species("A", 2.0).reaction("A <=> B", 1.0).kr(1.0)).contains("listed twice"));
+    assert!(err(two().reaction("A <=> C", 1.0).kr(1.0)).contains("unknown species `C`"));
+    assert!(err(two().reaction("A <=> B", 1.0)).contains("needs either kr"));
+    assert!(err(two().reaction("A => B", 1.0).kr(1.0)).contains("takes only kf"));
+    assert!(err(two().reaction("A <=> B", -1.0).kr(1.0)).contains("reaction[1].kf"));
+    assert!(err(two().reaction("A <=> B", 1e30).kr(1.0)).contains("outside"));
+    assert!(err(two().reaction("A <=> B", 1.0).kr(1.0).temperature(20.0)).contains("outside"));
+    // The same network from a file and from the builder is the same engine input.
+    let built = two()
+        .reaction("A <=> B", 2.0)
+        .equilibrium_constant(4.0)
+        .build()
+        .unwrap();
+    let read = crate::util::network(
+        "[species]\nA = 1.0\nB = 0.0\n\n[[reaction]]\nequation = \"A <=> B\"\nkf = 2.0\nK = 4.0\n",
+    );
+    assert_eq!(
+        (built.reactions[0].kf, built.reactions[0].kr),
+        (read.reactions[0].kf, read.reactions[0].kr)
+    );
+    assert_eq!(built.initial_state(), read.initial_state());
+}

@@ -4,9 +4,12 @@
 //! every equation refers to known species, constants are finite and non-negative, and every
 //! reversible step has a reverse constant.
 
+mod builder;
 mod equation;
 mod formula;
 mod given;
+
+pub use builder::NetworkBuilder;
 
 pub use given::{AmountGiven, Constant, KForm, KGiven, Origin, RateGiven};
 
