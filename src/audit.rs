@@ -236,8 +236,7 @@ pub fn audit(network: &Network, tol_kj: f64, adjust: Adjust) -> Audit {
     for (j, r) in network.reactions.iter().enumerate() {
         let number = j + 1;
         let net = net_change(&r.reactants, &r.products);
-        let forward_order: f64 = r.forward_orders.iter().map(|e| e.1).sum();
-        let reverse_order: f64 = r.reverse_orders.iter().map(|e| e.1).sum();
+        let (forward_order, reverse_order) = r.orders();
         let delta_n: f64 = net.iter().filter(|e| dissolved(e.0)).map(|e| e.1).sum();
         let delta_n_gas: f64 = net
             .iter()
@@ -247,7 +246,7 @@ pub fn audit(network: &Network, tol_kj: f64, adjust: Adjust) -> Audit {
         // K from a Gibbs energy is standard (1 mol/L for solutes, 1 bar for gases): as Kc.
         let standard_to_kc = |k0: f64| kc_from_standard(k0, delta_n_gas, network.temperature);
         let mut references = Vec::new();
-        let ratio = (r.reversible && r.kr > 0.0).then(|| r.kf / r.kr);
+        let ratio = (r.reversible && r.kr > 0.0).then(|| r.kf / r.kr); // kf = 0 is reported, not skipped
         if let Some(ratio) = ratio {
             let mut push = |source: String, k: f64, independent: bool| {
                 references.push(Reference {
@@ -445,7 +444,7 @@ fn balanced_steps(network: &Network) -> Vec<usize> {
     (0..network.reactions.len())
         .filter(|&j| {
             let r = &network.reactions[j];
-            r.reversible && r.kf > 0.0 && r.kr > 0.0
+            r.runs_both_ways()
         })
         .collect()
 }

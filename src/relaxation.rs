@@ -50,7 +50,7 @@ pub fn modes(network: &Network, c_eq: &[f64]) -> Result<Vec<Mode>, String> {
     // Steps that are active at equilibrium, with their equilibrium rate.
     let mut steps = Vec::new();
     for r in &network.reactions {
-        if !(r.reversible && r.kf > 0.0 && r.kr > 0.0) {
+        if !r.runs_both_ways() {
             if r.kf > 0.0 {
                 return Err("relaxation analysis needs an equilibrium: the network has one-way steps".into());
             }
@@ -67,11 +67,7 @@ pub fn modes(network: &Network, c_eq: &[f64]) -> Result<Vec<Mode>, String> {
         if r.reactants.iter().chain(&r.products).any(used_up) {
             continue; // a pure phase that is used up: the step has stopped
         }
-        let rate: f64 = r.kf
-            * r.forward_orders
-                .iter()
-                .map(|&(i, a)| c_eq[i].powf(a))
-                .product::<f64>();
+        let rate = r.rates(c_eq).0;
         let net = crate::stoich::net_change(&r.reactants, &r.products);
         let column: Vec<(usize, f64)> = net
             .iter()

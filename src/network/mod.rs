@@ -169,6 +169,60 @@ pub struct Network {
     pub reactions: Vec<Reaction>,
 }
 
+/// The rate law of a step, in one place: rate = kf·Π c^a (forward orders) − kr·Π c^b (reverse
+/// orders), pure phases at activity 1. Everything that needs to know how fast a step runs, in
+/// which directions, or whether kf/kr is an equilibrium constant asks here; `kinetics` holds
+/// the same law in the form the integrator differentiates (checked against `rates` in
+/// tests/model.rs).
+impl Reaction {
+    /// Both directions run (a reversible step with kf > 0 and kr > 0).
+    pub fn runs_both_ways(&self) -> bool {
+        self.reversible && self.kf > 0.0 && self.kr > 0.0
+    }
+
+    /// Only one direction runs: the step drives the network to exhaustion, not equilibrium.
+    pub fn runs_one_way(&self) -> bool {
+        (self.kf > 0.0) != (self.reversible && self.kr > 0.0)
+    }
+
+    /// Total forward and reverse order: they fix the units of kf and kr.
+    pub fn orders(&self) -> (f64, f64) {
+        let sum = |o: &[(usize, f64)]| o.iter().map(|e| e.1).sum();
+        (sum(&self.forward_orders), sum(&self.reverse_orders))
+    }
+
+    /// Mass action: forward minus reverse orders equal the net stoichiometry of the species in
+    /// rate laws, so that kf/kr is an equilibrium constant.
+    pub fn follows_stoichiometry(&self, species: &[Species]) -> bool {
+        let mut change: Vec<(usize, f64)> = net_change(&self.reactants, &self.products)
+            .into_iter()
+            .filter(|e| species[e.0].in_rate_laws())
+            .collect();
+        let mut add = |i: usize, v: f64| match change.iter_mut().find(|e| e.0 == i) {
+            Some(e) => e.1 += v,
+            None => change.push((i, v)),
+        };
+        for &(i, a) in &self.forward_orders {
+            add(i, a);
+        }
+        for &(i, b) in &self.reverse_orders {
+            add(i, -b);
+        }
+        change.iter().all(|e| e.1.abs() <= 1e-12)
+    }
+
+    /// Forward and reverse rate at concentrations c, mol/(L s), with every pure phase present.
+    pub fn rates(&self, c: &[f64]) -> (f64, f64) {
+        let product = |o: &[(usize, f64)]| o.iter().map(|&(i, a)| c[i].max(0.0).powf(a)).product::<f64>();
+        let reverse = if self.reversible && self.kr > 0.0 {
+            self.kr * product(&self.reverse_orders)
+        } else {
+            0.0
+        };
+        (self.kf * product(&self.forward_orders), reverse)
+    }
+}
+
 impl Network {
     /// Reads and validates a network file.
     pub fn from_file(path: &Path) -> Result<Network, Error> {
@@ -543,8 +597,8 @@ impl<'a> Reader<'a> {
             }
             Vec::new()
         };
-        let forward_order: f64 = forward_orders.iter().map(|e| e.1).sum();
-        let reverse_order: f64 = reverse_orders.iter().map(|e| e.1).sum();
+        let sum = |o: &[(usize, f64)]| o.iter().map(|e| e.1).sum::<f64>();
+        let (forward_order, reverse_order) = (sum(&forward_orders), sum(&reverse_orders));
         let kf_field = format!("{field}.kf");
         let Some(kf_value) = table.get("kf") else {
             return Err(self.error(

@@ -440,7 +440,7 @@ fn quotients(result: &RunResult, frame: &Frame, rates: &Rates) -> Option<Figure>
     } = rates;
     let reversible = |j: usize| {
         let r = &result.network.reactions[j];
-        r.reversible && r.kr > 0.0
+        r.runs_both_ways()
     };
     let shown = busiest_steps(forward, MAX_STEPS, reversible);
     if shown.is_empty() {
