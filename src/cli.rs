@@ -141,7 +141,7 @@ impl From<String> for Outcome {
 pub fn execute(cli: Cli) -> Result<Outcome, Error> {
     match cli.command {
         Command::Run(args) => run_command(args).map(Outcome::from),
-        Command::Equilibrium(args) => equilibrium_command(args).map(Outcome::from),
+        Command::Equilibrium(args) => equilibrium_command(args),
         Command::Check(args) => check_command(args),
     }
 }
@@ -300,15 +300,29 @@ fn run_command(args: RunArgs) -> Result<String, Error> {
     Ok(report::terminal::render(&result, &written))
 }
 
-fn equilibrium_command(args: EquilibriumArgs) -> Result<String, Error> {
+fn equilibrium_command(args: EquilibriumArgs) -> Result<Outcome, Error> {
     let network = Network::from_file_at(&args.case, temperature(&args.temperature)?)?;
     let stoich = Stoichiometry::new(&network);
-    let solved =
-        equilibrium::solve(&network, &stoich).map_err(|why| Error::NoEquilibrium(why.to_string()))?;
+    let solved = match equilibrium::solve(&network, &stoich) {
+        Ok(solved) => solved,
+        // Not a failure of the program: the answer is that there is none, and why.
+        Err(why) => {
+            return Ok(Outcome {
+                text: if args.json {
+                    serde_json::json!({ "equilibrium_tag": why.tag(), "equilibrium_status": why.to_string() })
+                        .to_string()
+                        + "\n"
+                } else {
+                    format!("{why}\n")
+                },
+                exit_code: 1,
+            })
+        }
+    };
     let c0 = network.initial_state();
     let extents = equilibrium::extents(&stoich, &c0, &solved.concentrations);
     let table = report::equilibrium_table::EquilibriumTable::new(&network, &c0, &solved, extents.as_deref());
-    Ok(if args.json { table.json() } else { table.text() })
+    Ok((if args.json { table.json() } else { table.text() }).into())
 }
 
 fn check_command(args: CheckArgs) -> Result<Outcome, Error> {
@@ -337,8 +351,8 @@ fn check_command(args: CheckArgs) -> Result<Outcome, Error> {
             source,
         })?;
         let corrected =
-            audit::corrected_network_text(&original, correction).map_err(|message| Error::Write {
-                path: path.clone(),
+            audit::corrected_network_text(&original, correction).map_err(|message| Error::Compose {
+                what: path.display().to_string(),
                 message,
             })?;
         report::write_new_file(path, corrected.as_bytes(), args.force)?;

@@ -29,6 +29,28 @@ impl std::fmt::Display for InputError {
 
 impl std::error::Error for InputError {}
 
+/// The integration could not go on: the step size fell below what double precision can resolve
+/// at time `time` (the network is ill-posed: constants or orders out of proportion).
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub struct IntegrationError {
+    /// Time reached, s.
+    pub time: f64,
+    /// The step size it would have needed, s.
+    pub step: f64,
+}
+
+impl std::fmt::Display for IntegrationError {
+    fn fmt(&self, f: &mut std::fmt::Formatter<'_>) -> std::fmt::Result {
+        write!(
+            f,
+            "integration failed at t = {:.6e} s: step size fell to {:.3e} s; the network may be ill-posed (check constants and orders)",
+            self.time, self.step
+        )
+    }
+}
+
+impl std::error::Error for IntegrationError {}
+
 /// Everything that can stop a run.
 #[derive(Debug, thiserror::Error)]
 pub enum Error {
@@ -36,17 +58,22 @@ pub enum Error {
     Input(#[from] InputError),
     #[error("cannot read {path}: {source}")]
     Read { path: PathBuf, source: std::io::Error },
-    #[error("cannot write {path}: {message}")]
-    Write { path: PathBuf, message: String },
+    #[error("cannot write {path}: {source}")]
+    Write {
+        path: PathBuf,
+        #[source]
+        source: std::io::Error,
+    },
+    /// A report or file could not be composed (before anything is written).
+    #[error("cannot compose {what}: {message}")]
+    Compose { what: String, message: String },
     #[error(
         "{path} already holds results of an earlier run ({existing}); \
          choose another --out directory or pass --force to replace them"
     )]
     OutputExists { path: PathBuf, existing: String },
-    #[error("integration failed at t = {time:.6e} s: {reason}")]
-    Integration { time: f64, reason: String },
-    #[error("{0}")]
-    NoEquilibrium(String),
+    #[error(transparent)]
+    Integration(#[from] IntegrationError),
     #[error("bad option {option}: {message}")]
     Option { option: String, message: String },
     /// A library setting out of range (the command line checks its options before this).
@@ -64,7 +91,7 @@ impl Error {
             | Error::Option { .. }
             | Error::Setting { .. }
             | Error::Read { .. } => 2,
-            Error::Write { .. } | Error::Integration { .. } | Error::NoEquilibrium(_) => 1,
+            Error::Write { .. } | Error::Compose { .. } | Error::Integration(_) => 1,
         }
     }
 }

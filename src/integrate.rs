@@ -22,7 +22,7 @@
 
 use std::time::Instant;
 
-use crate::error::Error;
+use crate::error::IntegrationError;
 use crate::kinetics::RateModel;
 use crate::linalg::{LinearSolver, Pattern};
 use crate::stoich::ConservationLaw;
@@ -254,7 +254,7 @@ pub fn integrate(
     laws: &[ConservationLaw],
     c0: &[f64],
     options: &Options,
-) -> Result<Solution, Error> {
+) -> Result<Solution, IntegrationError> {
     let started = Instant::now();
     let n = model.n_species();
     let mut stats = Stats {
@@ -343,12 +343,7 @@ pub fn integrate(
         }
         h = h.min(target - t);
         if h <= 1e-14 * t.max(1e-300) || !h.is_finite() {
-            return Err(Error::Integration {
-                time: t,
-                reason: format!(
-                    "step size fell to {h:.3e} s; the network may be ill-posed (check constants and orders)"
-                ),
-            });
+            return Err(IntegrationError { time: t, step: h });
         }
 
         // One RODAS4 step from (t, y) with step h.

@@ -18,6 +18,7 @@ pub mod cli;
 pub mod constants;
 pub mod equilibrium;
 pub mod error;
+pub mod format;
 pub mod integrate;
 pub mod kinetics;
 pub mod linalg;

@@ -40,19 +40,11 @@ impl ConservationLaw {
                 text.push_str(&format!(" {sign} "));
             }
             if (c.abs() - 1.0).abs() > 1e-12 {
-                text.push_str(&format!("{} ", format_coefficient(c.abs())));
+                text.push_str(&format!("{} ", crate::format::coefficient(c.abs())));
             }
             text.push_str(&names[i]);
         }
         text
-    }
-}
-
-fn format_coefficient(c: f64) -> String {
-    if (c - c.round()).abs() < 1e-9 {
-        format!("{}", c.round() as i64)
-    } else {
-        format!("{c:.4}")
     }
 }
 

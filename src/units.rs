@@ -75,7 +75,7 @@ impl fmt::Display for Dimension {
             parts.push(if (p - 1.0).abs() < 1e-12 {
                 name.to_string()
             } else {
-                format!("{name}^{}", trim(p))
+                format!("{name}^{}", crate::format::whole_or_exact(p))
             });
         }
         if parts.is_empty() {
@@ -83,14 +83,6 @@ impl fmt::Display for Dimension {
         } else {
             write!(f, "{}", parts.join(" "))
         }
-    }
-}
-
-fn trim(x: f64) -> String {
-    if (x - x.round()).abs() < 1e-12 {
-        format!("{}", x.round() as i64)
-    } else {
-        format!("{x}")
     }
 }
 

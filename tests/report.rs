@@ -4,7 +4,7 @@
 use std::path::Path;
 use std::process::Command;
 
-use kinequil::report::html::number;
+use kinequil::format::number;
 
 fn kinequil(args: &[&str]) -> std::process::Output {
     Command::new(env!("CARGO_BIN_EXE_kinequil"))

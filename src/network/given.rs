@@ -287,7 +287,7 @@ impl Network {
                         origin,
                         format!(
                             "evaluates to {} at {t} K, outside {:e} to {:e} (common practice; mol/L and s)",
-                            super::finite_or_word(k),
+                            crate::format::finite_or_word(k),
                             limits::MIN_CONSTANT,
                             limits::MAX_RATE_CONSTANT
                         ),
@@ -304,7 +304,7 @@ impl Network {
                             &k.origin,
                             format!(
                                 "evaluates to Kc = {} at {t} K, outside {:e} to {:e}: the step is one-way in practice; write it with `=>`",
-                                super::finite_or_word(kc),
+                                crate::format::finite_or_word(kc),
                                 limits::MIN_CONSTANT,
                                 limits::MAX_EQUILIBRIUM_CONSTANT
                             ),

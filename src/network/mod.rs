@@ -840,7 +840,7 @@ impl<'a> Reader<'a> {
                 field,
                 format!(
                     "`{text}` has units of {given}, but a step of order {} needs {} (mol/L and s: {})",
-                    trim_order(order),
+                    crate::format::whole_or_exact(order),
                     expected,
                     crate::units::rate_constant_units(order)
                 ),
@@ -1061,27 +1061,6 @@ pub fn net_change(reactants: &[(usize, f64)], products: &[(usize, f64)]) -> Vec<
     net.retain(|&(_, c)| c != 0.0);
     net.sort_by_key(|&(i, _)| i);
     net
-}
-
-/// A value for a message: overflow and underflow said in words, never `inf` or `NaN`.
-fn finite_or_word(x: f64) -> String {
-    if x.is_nan() {
-        "no number (0/0 or ∞/∞)".into()
-    } else if x.is_infinite() {
-        "a number beyond 1e308 (overflow)".into()
-    } else if x == 0.0 {
-        "0 (underflow)".into()
-    } else {
-        format!("{x:e}")
-    }
-}
-
-fn trim_order(order: f64) -> String {
-    if (order - order.round()).abs() < 1e-12 {
-        format!("{}", order.round() as i64)
-    } else {
-        format!("{order}")
-    }
 }
 
 fn check_name(name: &str) -> Result<(), String> {

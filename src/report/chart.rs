@@ -7,6 +7,7 @@ use crate::units::TimeUnit;
 use super::figure::{Band, Figure, Level, Mark, Pattern, Series};
 use super::table::{busiest_steps, output_times, step_rates};
 use super::terminal_time;
+use crate::format::percent;
 
 /// Most curves drawn on one chart; the species with the largest change are kept.
 pub const MAX_CURVES: usize = 12;
@@ -264,11 +265,6 @@ fn short_title(title: &str) -> String {
     } else {
         title.chars().take(WIDTH - 1).collect::<String>() + "…"
     }
-}
-
-fn percent(fraction: f64) -> String {
-    let s = format!("{:.4}", 100.0 * fraction);
-    format!("{} %", s.trim_end_matches('0').trim_end_matches('.'))
 }
 
 /// Fraction of the way still to go, |c − c_eq| / (total change), on a log scale against linear

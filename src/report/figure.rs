@@ -327,28 +327,16 @@ fn wrap(text: &str, width: usize) -> Vec<String> {
 /// Tick label: on a log axis only whole decades are labelled, with their plain value.
 fn tick_label(v: f64, log: bool) -> String {
     if !log {
-        return trim_number(v);
+        return crate::format::trim_number(v);
     }
     if (v - v.round()).abs() > 1e-6 {
         return String::new();
     }
     let decade = v.round() as i32;
     if (-3..=4).contains(&decade) {
-        trim_number(10f64.powi(decade))
+        crate::format::trim_number(10f64.powi(decade))
     } else {
         format!("1e{decade}")
-    }
-}
-
-pub fn trim_number(x: f64) -> String {
-    if x == 0.0 {
-        return "0".into();
-    }
-    if x.abs() >= 1e5 || x.abs() < 1e-3 {
-        format!("{x:.2e}")
-    } else {
-        let s = format!("{x:.4}");
-        s.trim_end_matches('0').trim_end_matches('.').to_string()
     }
 }
 

@@ -6,7 +6,8 @@ use std::fmt::Write;
 use crate::run::RunResult;
 
 use super::summary::{nonlinear_approach_note, relaxation_estimates, stop_description};
-use super::{format_duration, with_digits, CAUTIONS};
+use super::{format_duration, CAUTIONS};
+use crate::format::number;
 
 /// Everything the report needs beside the run itself.
 pub struct ReportInputs<'a> {
@@ -49,11 +50,6 @@ pub fn escape(text: &str) -> String {
         .replace('<', "&lt;")
         .replace('>', "&gt;")
         .replace('"', "&quot;")
-}
-
-/// The number format the report uses (six significant figures).
-pub fn number(x: f64) -> String {
-    with_digits(x, 6)
 }
 
 pub fn render(result: &RunResult, inputs: &ReportInputs<'_>) -> String {

@@ -76,8 +76,8 @@ pub fn render_run(
     result: &RunResult,
     chart_options: &chart::ChartOptions,
 ) -> Result<Vec<(String, Vec<u8>)>, Error> {
-    let render_error = |name: &str, message: String| Error::Write {
-        path: name.into(),
+    let render_error = |name: &str, message: String| Error::Compose {
+        what: name.into(),
         message,
     };
     let summary = summary::Summary::from_result(result);
@@ -142,7 +142,7 @@ pub fn write_new_file(path: &Path, bytes: &[u8], force: bool) -> Result<(), Erro
     }
     let write_error = |e: std::io::Error| Error::Write {
         path: path.to_path_buf(),
-        message: e.to_string(),
+        source: e,
     };
     let dir = path
         .parent()
@@ -171,7 +171,7 @@ pub const RUN_MARKER: &str = ".kinequil-run";
 pub fn write_all(dir: &Path, files: &[(String, Vec<u8>)], force: bool) -> Result<Vec<PathBuf>, Error> {
     let write_error = |path: &Path, e: std::io::Error| Error::Write {
         path: path.to_path_buf(),
-        message: e.to_string(),
+        source: e,
     };
     let exists = dir.exists();
     if exists {
@@ -183,9 +183,9 @@ pub fn write_all(dir: &Path, files: &[(String, Vec<u8>)], force: bool) -> Result
     let name = dir
         .file_name()
         .map(|n| n.to_string_lossy().into_owned())
-        .ok_or_else(|| Error::Write {
-            path: dir.to_path_buf(),
-            message: "the output folder needs a name of its own (not `.` or `/`)".into(),
+        .ok_or_else(|| Error::Option {
+            option: "--out".into(),
+            message: format!("{} is not a folder of its own (not `.` or `/`)", dir.display()),
         })?;
     let parent = dir
         .parent()
@@ -235,9 +235,9 @@ pub fn refuse_foreign(dir: &Path) -> Result<(), Error> {
     if !dir.exists() {
         return Ok(());
     }
-    let entries = fs::read_dir(dir).map_err(|e| Error::Write {
+    let entries = fs::read_dir(dir).map_err(|source| Error::Write {
         path: dir.to_path_buf(),
-        message: e.to_string(),
+        source,
     })?;
     let foreign: Vec<String> = entries
         .filter_map(|e| e.ok())
@@ -259,56 +259,9 @@ pub fn refuse_foreign(dir: &Path) -> Result<(), Error> {
 }
 
 /// Seconds with a friendlier unit beside them when the number is large.
+pub use crate::format::{format_duration, significant, trim_percent, with_digits};
+
 /// A time in the chosen output unit, four significant figures.
 pub fn terminal_time(seconds: f64, unit: crate::units::TimeUnit) -> String {
     format!("{} {}", significant(seconds / unit.seconds()), unit.symbol())
-}
-
-/// A fraction as a percentage without trailing zeros: 0.001 → "0.1".
-pub fn trim_percent(fraction: f64) -> String {
-    let s = format!("{:.4}", fraction * 100.0);
-    s.trim_end_matches('0').trim_end_matches('.').to_string()
-}
-
-pub fn format_duration(seconds: f64) -> String {
-    if !seconds.is_finite() {
-        return "(out of range)".into();
-    }
-    let friendly = if seconds >= 86_400.0 * 2.0 {
-        format!(" ({:.2} d)", seconds / 86_400.0)
-    } else if seconds >= 3600.0 {
-        format!(" ({:.2} h)", seconds / 3600.0)
-    } else if seconds >= 120.0 {
-        format!(" ({:.1} min)", seconds / 60.0)
-    } else {
-        String::new()
-    };
-    format!("{} s{friendly}", significant(seconds))
-}
-
-/// Four significant figures, fixed or scientific as fits.
-pub fn significant(x: f64) -> String {
-    with_digits(x, 4)
-}
-
-/// `digits` significant figures: fixed notation between 1e-3 and 1e6, otherwise scientific with
-/// a signed two-digit exponent (2.083340e-08), which lines up in columns.
-pub fn with_digits(x: f64, digits: usize) -> String {
-    if x == 0.0 {
-        return "0".into();
-    }
-    if !x.is_finite() {
-        // Never print NaN or inf; the checks upstream should have stopped such a value.
-        return "(out of range)".into();
-    }
-    if x.abs() >= 1e6 || x.abs() < 1e-3 {
-        let text = format!("{x:.prec$e}", prec = digits - 1);
-        let (mantissa, exponent) = text.split_once('e').unwrap_or((&text, "0"));
-        let exponent: i32 = exponent.parse().unwrap_or(0);
-        let sign = if exponent < 0 { '-' } else { '+' };
-        format!("{mantissa}e{sign}{:02}", exponent.abs())
-    } else {
-        let decimals = (digits as i32 - 1 - x.abs().log10().floor() as i32).max(0) as usize;
-        format!("{x:.decimals$}")
-    }
 }
