@@ -129,11 +129,17 @@ pub struct RunArgs {
 pub struct Outcome {
     pub text: String,
     pub exit_code: u8,
+    /// A diagnosis for stderr (for example why no equilibrium exists), printed after `text`.
+    pub diagnosis: Option<String>,
 }
 
 impl From<String> for Outcome {
     fn from(text: String) -> Outcome {
-        Outcome { text, exit_code: 0 }
+        Outcome {
+            text,
+            exit_code: 0,
+            diagnosis: None,
+        }
     }
 }
 
@@ -307,16 +313,17 @@ fn equilibrium_command(args: EquilibriumArgs) -> Result<Outcome, Error> {
         Ok(solved) => solved,
         // Not a failure of the program: the answer is that there is none, and why.
         Err(why) => {
+            let json =
+                serde_json::json!({ "equilibrium_tag": why.tag(), "equilibrium_status": why.to_string() });
             return Ok(Outcome {
                 text: if args.json {
-                    serde_json::json!({ "equilibrium_tag": why.tag(), "equilibrium_status": why.to_string() })
-                        .to_string()
-                        + "\n"
+                    json.to_string() + "\n"
                 } else {
-                    format!("{why}\n")
+                    String::new()
                 },
                 exit_code: 1,
-            })
+                diagnosis: Some(why.to_string()),
+            });
         }
     };
     let c0 = network.initial_state();
@@ -363,6 +370,7 @@ fn check_command(args: CheckArgs) -> Result<Outcome, Error> {
     Ok(Outcome {
         text,
         exit_code: if found.consistent { 0 } else { 1 },
+        diagnosis: None,
     })
 }
 

@@ -11,6 +11,26 @@
 //! - a run (integration to equilibrium, times to equilibrium, the solve and the audit):
 //!   [`run::run`] with [`run::RunSettings`];
 //! - the equilibrium alone: [`equilibrium::solve`]; the consistency audit: [`audit::audit`].
+//!
+//! The README's example (kept identical by `tests/docs.rs`):
+//!
+//! ```
+//! # fn main() -> Result<(), Box<dyn std::error::Error>> {
+//! use kinequil::network::{Constant, NetworkBuilder};
+//!
+//! let network = NetworkBuilder::new("isomerisation")
+//!     .species("A", 1.0)
+//!     .species("B", 0.0)
+//!     .reaction("A <=> B", 2.0)
+//!     .kr(1.0)
+//!     .build()?;
+//! let warmer = network.at_temperature(333.15)?;              // constants re-evaluated, no text
+//! let faster = network.with_factor(0, Constant::Kf, 2.0)?;   // kf × 2 at every temperature
+//! let result = kinequil::run::run(&faster, &kinequil::run::RunSettings::default())?;
+//! # assert!(result.solution.equilibrium_at.is_some() && warmer.temperature == 333.15);
+//! # Ok(())
+//! # }
+//! ```
 
 pub mod analysis;
 pub mod audit;

@@ -11,6 +11,9 @@ fn main() -> ExitCode {
         Ok(outcome) => {
             // A closed pipe (e.g. `| head`) is not an error.
             let _ = std::io::stdout().write_all(outcome.text.as_bytes());
+            if let Some(diagnosis) = outcome.diagnosis {
+                eprintln!("error: {diagnosis}");
+            }
             ExitCode::from(outcome.exit_code)
         }
         Err(e) => {

@@ -48,3 +48,26 @@ fn every_bundled_case_runs_to_a_result() {
     }
     assert!(count >= 4, "expected the demo and the example cases");
 }
+
+#[test]
+fn readme_library_example_is_the_tested_one() {
+    // The README's Rust example is run as a doc test in src/lib.rs; this keeps the two the same.
+    let root = Path::new(env!("CARGO_MANIFEST_DIR"));
+    let readme = std::fs::read_to_string(root.join("README.md")).unwrap();
+    let start = readme.find("```rust\n").expect("README has a Rust example") + "```rust\n".len();
+    let end = start + readme[start..].find("```").unwrap();
+    let lib = std::fs::read_to_string(root.join("src/lib.rs")).unwrap();
+    let documented: String = lib
+        .lines()
+        .filter_map(|l| l.strip_prefix("//!"))
+        .map(|l| l.strip_prefix(' ').unwrap_or(l))
+        .filter(|l| !l.starts_with('#'))
+        .collect::<Vec<_>>()
+        .join("\n");
+    for line in readme[start..end].lines().filter(|l| !l.trim().is_empty()) {
+        assert!(
+            documented.contains(line),
+            "README line not in the tested example: {line}"
+        );
+    }
+}
