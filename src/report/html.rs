@@ -53,9 +53,22 @@ pub fn escape(text: &str) -> String {
 }
 
 pub fn render(result: &RunResult, inputs: &ReportInputs<'_>) -> String {
-    let net = &result.network;
-    let names = result.species_names();
     let mut h = String::new();
+    head(&mut h, result, inputs);
+    conditions(&mut h, result);
+    composition(&mut h, result);
+    time_to_equilibrium(&mut h, result);
+    relaxation(&mut h, result);
+    audit(&mut h, result);
+    charts(&mut h, inputs);
+    solver(&mut h, result, inputs);
+    input_file(&mut h, result);
+    h
+}
+
+/// Title, provenance and cautions.
+fn head(h: &mut String, result: &RunResult, inputs: &ReportInputs<'_>) {
+    let net = &result.network;
     let _ = write!(
         h,
         "<!DOCTYPE html>\n<html lang=\"en\">\n<head>\n<meta charset=\"utf-8\">\n<title>{}</title>\n<style>{STYLE}</style>\n</head>\n<body>\n",
@@ -75,7 +88,11 @@ pub fn render(result: &RunResult, inputs: &ReportInputs<'_>) -> String {
         let _ = writeln!(h, "<li>{}</li>", escape(c));
     }
     let _ = writeln!(h, "</ul></div>");
+}
 
+/// Temperature, species and steps as evaluated.
+fn conditions(h: &mut String, result: &RunResult) {
+    let net = &result.network;
     // Conditions.
     let _ = writeln!(h, "<h2>Conditions</h2>");
     let _ = writeln!(
@@ -117,7 +134,11 @@ pub fn render(result: &RunResult, inputs: &ReportInputs<'_>) -> String {
         );
     }
     let _ = writeln!(h, "</table><p class=\"meta\">Rate constants in mol/L and s units of their order, evaluated at the run temperature.</p>");
+}
 
+/// Initial, final and equilibrium compositions, and gas pressures.
+fn composition(h: &mut String, result: &RunResult) {
+    let names = result.species_names();
     // Results.
     let _ = writeln!(
         h,
@@ -172,7 +193,11 @@ pub fn render(result: &RunResult, inputs: &ReportInputs<'_>) -> String {
             parts.join(", ")
         );
     }
+}
 
+/// Times to equilibrium, with the linear estimate and the hold-time table.
+fn time_to_equilibrium(h: &mut String, result: &RunResult) {
+    let names = result.species_names();
     let _ = writeln!(h, "<h2>Time to equilibrium</h2>");
     let _ = writeln!(h, "<p>The earliest time after which every species stays within the given fraction of its total change from its equilibrium value.</p>");
     let estimates = relaxation_estimates(result);
@@ -212,7 +237,10 @@ pub fn render(result: &RunResult, inputs: &ReportInputs<'_>) -> String {
             parts.join(", ")
         );
     }
+}
 
+/// Relaxation modes at equilibrium.
+fn relaxation(h: &mut String, result: &RunResult) {
     let _ = writeln!(h, "<h2>Relaxation times</h2>");
     match &result.relaxation {
         Ok(modes) if !modes.is_empty() => {
@@ -241,7 +269,10 @@ pub fn render(result: &RunResult, inputs: &ReportInputs<'_>) -> String {
             let _ = writeln!(h, "<p>Relaxation analysis: {}.</p>", escape(why));
         }
     }
+}
 
+/// The audit findings in brief.
+fn audit(h: &mut String, result: &RunResult) {
     let _ = writeln!(h, "<h2>Audit of the rate constants</h2>");
     let findings = result.audit.brief();
     if findings.is_empty() {
@@ -257,7 +288,10 @@ pub fn render(result: &RunResult, inputs: &ReportInputs<'_>) -> String {
         }
         let _ = writeln!(h, "</ul><p class=\"meta\"><code>kinequil check</code> gives the full audit and a minimal correction.</p>");
     }
+}
 
+/// The charts, inline.
+fn charts(h: &mut String, inputs: &ReportInputs<'_>) {
     let _ = writeln!(h, "<h2>Charts</h2>");
     for (title, svg) in inputs.charts {
         let _ = writeln!(
@@ -266,7 +300,11 @@ pub fn render(result: &RunResult, inputs: &ReportInputs<'_>) -> String {
             escape(title)
         );
     }
+}
 
+/// Solver statistics, conservation and tolerances.
+fn solver(h: &mut String, result: &RunResult, inputs: &ReportInputs<'_>) {
+    let names = result.species_names();
     let st = &result.solution.stats;
     let _ = writeln!(h, "<h2>Solver</h2>");
     let _ = writeln!(
@@ -294,8 +332,11 @@ pub fn render(result: &RunResult, inputs: &ReportInputs<'_>) -> String {
             .collect::<Vec<_>>()
             .join(", ")
     );
+}
 
+/// The input file as read.
+fn input_file(h: &mut String, result: &RunResult) {
+    let net = &result.network;
     let _ = writeln!(h, "<h2>Input file</h2><pre>{}</pre>", escape(&net.source_text));
     let _ = writeln!(h, "</body>\n</html>");
-    h
 }
