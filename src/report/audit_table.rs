@@ -9,6 +9,19 @@ use super::with_digits;
 
 pub fn render(network: &Network, audit: &Audit) -> String {
     let mut out = String::new();
+    write_steps(&mut out, network, audit);
+    write_references(&mut out, audit);
+    write_activation(&mut out, audit);
+    write_cycles(&mut out, audit);
+    write_balance(&mut out, network, audit);
+    write_warnings(&mut out, audit);
+    write_correction(&mut out, audit);
+    write_model(&mut out, audit);
+    out
+}
+
+/// The header and the table of steps with their constants and implied units.
+fn write_steps(out: &mut String, network: &Network, audit: &Audit) {
     let _ = writeln!(
         out,
         "kinequil {}: consistency audit of {} at {:.2} K (tolerance {} kJ/mol)",
@@ -51,6 +64,10 @@ pub fn render(network: &Network, audit: &Audit) -> String {
             ratio
         );
     }
+}
+
+/// kf/kr against every known equilibrium constant.
+fn write_references(out: &mut String, audit: &Audit) {
     let references: Vec<_> = audit
         .steps
         .iter()
@@ -75,6 +92,10 @@ pub fn render(network: &Network, audit: &Audit) -> String {
             r.deviation_kj_per_mol
         );
     }
+}
+
+/// Arrhenius parameters against the enthalpy of reaction.
+fn write_activation(out: &mut String, audit: &Audit) {
     let activation: Vec<_> = audit
         .steps
         .iter()
@@ -95,6 +116,10 @@ pub fn render(network: &Network, audit: &Audit) -> String {
             );
         }
     }
+}
+
+/// Detailed balance around cycles.
+fn write_cycles(out: &mut String, audit: &Audit) {
     let _ = writeln!(out, "\n  detailed balance around cycles (Wegscheider condition):");
     if audit.cycles.is_empty() {
         let _ = writeln!(out, "    no cycles among the reversible steps");
@@ -120,6 +145,10 @@ pub fn render(network: &Network, audit: &Audit) -> String {
             verdict(true, c.deviation_kj_per_mol, audit.tolerance_kj_per_mol)
         );
     }
+}
+
+/// Element and charge balance.
+fn write_balance(out: &mut String, network: &Network, audit: &Audit) {
     let _ = writeln!(out, "\n  element and charge balance:");
     let with_formulas = network.species.iter().filter(|s| s.formula.is_some()).count();
     if audit.balance.is_empty() {
@@ -143,12 +172,20 @@ pub fn render(network: &Network, audit: &Audit) -> String {
             parts.join(", ")
         );
     }
+}
+
+/// Suspicious values.
+fn write_warnings(out: &mut String, audit: &Audit) {
     if !audit.warnings.is_empty() {
         let _ = writeln!(out, "\n  warnings:");
         for w in &audit.warnings {
             let _ = writeln!(out, "    step {} ({}): {}", w.step, w.equation, w.message);
         }
     }
+}
+
+/// The minimal correction, when one is proposed.
+fn write_correction(out: &mut String, audit: &Audit) {
     if let Some(correction) = &audit.correction {
         let _ = writeln!(
             out,
@@ -171,6 +208,10 @@ pub fn render(network: &Network, audit: &Audit) -> String {
             let _ = writeln!(out, "    note: {conflict}");
         }
     }
+}
+
+/// The model statement and cautions.
+fn write_model(out: &mut String, audit: &Audit) {
     let _ = writeln!(out, "\n  Model: {}. Cautions:", audit.model);
     for c in &audit.cautions {
         let _ = writeln!(out, "    - {c}");
@@ -184,7 +225,6 @@ pub fn render(network: &Network, audit: &Audit) -> String {
             "INCONSISTENT"
         }
     );
-    out
 }
 
 fn verdict(independent: bool, deviation: f64, tol: f64) -> &'static str {
