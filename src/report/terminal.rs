@@ -13,6 +13,27 @@ const MODES_SHOWN: usize = 5;
 
 pub fn render(result: &RunResult, files: &[PathBuf]) -> String {
     let mut out = String::new();
+    write_header(&mut out, result);
+    let _ = writeln!(out);
+    write_agreement(&mut out, result);
+    let _ = writeln!(out);
+    write_settling(&mut out, result);
+    write_relaxation(&mut out, result);
+    write_hold_time(&mut out, result);
+    let _ = writeln!(out);
+    write_conservation(&mut out, result);
+    write_audit_brief(&mut out, result);
+    write_solver(&mut out, result, files);
+    let _ = writeln!(out);
+    let _ = writeln!(out, "  Cautions:");
+    for c in CAUTIONS {
+        let _ = writeln!(out, "    - {c}");
+    }
+    out
+}
+
+/// The title line, the stop line and the composition table.
+fn write_header(out: &mut String, result: &RunResult) {
     let names = result.species_names();
     let net = &result.network;
     let _ = writeln!(out, "kinequil {}: {}", env!("CARGO_PKG_VERSION"), net.title);
@@ -51,11 +72,11 @@ pub fn render(result: &RunResult, files: &[PathBuf]) -> String {
             eq
         );
     }
-    let _ = writeln!(out);
-    write_agreement(&mut out, result);
-    let _ = writeln!(out);
-    write_settling(&mut out, result);
-    write_relaxation(&mut out, result);
+}
+
+/// The state at the requested time, when `until` was given.
+fn write_hold_time(out: &mut String, result: &RunResult) {
+    let names = result.species_names();
     if let Some(until) = result.settings.until {
         let _ = writeln!(
             out,
@@ -72,7 +93,11 @@ pub fn render(result: &RunResult, files: &[PathBuf]) -> String {
             .collect();
         let _ = writeln!(out, "    {}", parts.join(", "));
     }
-    let _ = writeln!(out);
+}
+
+/// Conservation laws with their drift, and gas pressures.
+fn write_conservation(out: &mut String, result: &RunResult) {
+    let names = result.species_names();
     let laws = &result.stoichiometry.conservation;
     if laws.is_empty() {
         let _ = writeln!(
@@ -112,6 +137,10 @@ pub fn render(result: &RunResult, files: &[PathBuf]) -> String {
             parts.join(", ")
         );
     }
+}
+
+/// The audit findings in brief.
+fn write_audit_brief(out: &mut String, result: &RunResult) {
     let findings = result.audit.brief();
     if findings.is_empty() {
         let _ = writeln!(out, "  audit of the rate constants: no findings");
@@ -125,6 +154,10 @@ pub fn render(result: &RunResult, files: &[PathBuf]) -> String {
             let _ = writeln!(out, "    - {f}");
         }
     }
+}
+
+/// Solver statistics, tolerances and the files written.
+fn write_solver(out: &mut String, result: &RunResult, files: &[PathBuf]) {
     let st = &result.solution.stats;
     let _ = writeln!(
         out,
@@ -149,12 +182,6 @@ pub fn render(result: &RunResult, files: &[PathBuf]) -> String {
             let _ = writeln!(out, "    {}", f.display());
         }
     }
-    let _ = writeln!(out);
-    let _ = writeln!(out, "  Cautions:");
-    for c in CAUTIONS {
-        let _ = writeln!(out, "    - {c}");
-    }
-    out
 }
 
 /// Whether the integrated end state and the directly solved equilibrium agree.
