@@ -289,11 +289,7 @@ pub fn integrate(
     let scale =
         |y0: &[f64], y1: &[f64], i: usize| options.atol[i] + options.rtol * y0[i].abs().max(y1[i].abs());
     let mut h = initial_step(&y, &f, options, end);
-    let mut jac = vec![0.0; jac_pattern.nnz()];
-    let mut matrix = vec![0.0; jac_pattern.nnz()];
-    let mut u = vec![vec![0.0; n]; 6];
-    let mut stage = vec![0.0; n];
-    let mut fs = vec![0.0; n];
+    let mut rodas = Rodas4::new(n, jac_pattern.nnz(), diagonal);
     let mut y_new = vec![0.0; n];
     let mut equilibrium_at = None;
     let mut worst_negative: f64 = 0.0;
@@ -347,52 +343,13 @@ pub fn integrate(
         }
 
         // One RODAS4 step from (t, y) with step h.
-        model.jacobian(&y, &mut jac);
-        stats.jacobian_evals += 1;
-        let inv = 1.0 / (h * rodas4::GAMMA);
-        for (m, j) in matrix.iter_mut().zip(&jac) {
-            *m = -j;
-        }
-        for &d in &diagonal {
-            matrix[d] += inv;
-        }
-        stats.lu_factorizations += 1;
-        if solver.factor(&matrix).is_err() {
+        if !rodas.step(model, &mut solver, &y, &f, h, &mut y_new, &mut stats) {
             h *= 0.25;
             stats.rejected_steps += 1;
             rejected_last = true;
             continue;
         }
-        let mut failed = false;
-        for s in 0..6 {
-            if s == 0 {
-                u[0].copy_from_slice(&f);
-            } else {
-                for i in 0..n {
-                    stage[i] = y[i] + (0..s).map(|j| rodas4::A[s][j] * u[j][i]).sum::<f64>();
-                }
-                model.rhs(&stage, &mut fs);
-                stats.rhs_evals += 1;
-                for i in 0..n {
-                    fs[i] += (0..s).map(|j| rodas4::C[s][j] * u[j][i]).sum::<f64>() / h;
-                }
-                u[s].copy_from_slice(&fs);
-            }
-            if solver.solve(&mut u[s]).is_err() {
-                failed = true;
-                break;
-            }
-        }
-        if failed {
-            h *= 0.25;
-            stats.rejected_steps += 1;
-            rejected_last = true;
-            continue;
-        }
-        // Stiffly accurate: y1 = Y6 + u6, and u6 is the error estimate.
-        for i in 0..n {
-            y_new[i] = y[i] + (0..5).map(|j| rodas4::A[5][j] * u[j][i]).sum::<f64>() + u[5][i];
-        }
+        let u = &rodas.u;
         let err = u[5]
             .iter()
             .enumerate()
@@ -441,25 +398,17 @@ pub fn integrate(
 
         if options.to_equilibrium && equilibrium_at.is_none() {
             // y_new holds the state before the step.
-            let ratio = (t / h).min(SCREEN_RATIO);
-            let at_target = options
-                .target
-                .as_ref()
-                .is_some_and(|c| (0..n).all(|i| (y[i] - c[i]).abs() <= TARGET_BAND * scale(c, c, i)));
-            let screened =
-                (0..n).all(|i| (y[i] - y_new[i]).abs() * ratio <= EQUILIBRIUM_SCREEN * scale(&y, &y, i));
-            if at_target {
+            let reached = equilibrium_test(
+                model,
+                options,
+                &mut detector,
+                &mut rodas.jac,
+                &mut stats,
+                (&y, &y_new, &f),
+                (t, h),
+            );
+            if reached {
                 equilibrium_at = Some(t);
-            } else if screened {
-                stats.equilibrium_checks += 1;
-                model.jacobian(&y, &mut jac);
-                stats.jacobian_evals += 1;
-                let tol: Vec<f64> = (0..n).map(|i| scale(&y, &y, i)).collect();
-                if detector.check(&jac, &f, &tol) {
-                    equilibrium_at = Some(t);
-                }
-            } else {
-                detector.reset();
             }
         }
 
@@ -475,6 +424,117 @@ pub fn integrate(
         equilibrium_at,
         worst_negative,
     })
+}
+
+/// The workspace of RODAS4 steps, allocated once per integration.
+struct Rodas4 {
+    jac: Vec<f64>,
+    matrix: Vec<f64>,
+    diagonal: Vec<usize>,
+    /// The six stage vectors; after a step, u[5] is the error estimate.
+    u: Vec<Vec<f64>>,
+    stage: Vec<f64>,
+    fs: Vec<f64>,
+}
+
+impl Rodas4 {
+    fn new(n: usize, nnz: usize, diagonal: Vec<usize>) -> Rodas4 {
+        Rodas4 {
+            jac: vec![0.0; nnz],
+            matrix: vec![0.0; nnz],
+            diagonal,
+            u: vec![vec![0.0; n]; 6],
+            stage: vec![0.0; n],
+            fs: vec![0.0; n],
+        }
+    }
+
+    /// One step of size h from (y, f = f(y)) into `y_new`: one Jacobian, one factorisation of
+    /// I/(hγ) − J and six solves. False when the factorisation or a solve failed.
+    #[allow(clippy::too_many_arguments)]
+    fn step(
+        &mut self,
+        model: &RateModel,
+        solver: &mut LinearSolver,
+        y: &[f64],
+        f: &[f64],
+        h: f64,
+        y_new: &mut [f64],
+        stats: &mut Stats,
+    ) -> bool {
+        let n = y.len();
+        model.jacobian(y, &mut self.jac);
+        stats.jacobian_evals += 1;
+        let inv = 1.0 / (h * rodas4::GAMMA);
+        for (m, j) in self.matrix.iter_mut().zip(&self.jac) {
+            *m = -j;
+        }
+        for &d in &self.diagonal {
+            self.matrix[d] += inv;
+        }
+        stats.lu_factorizations += 1;
+        if solver.factor(&self.matrix).is_err() {
+            return false;
+        }
+        let u = &mut self.u;
+        for s in 0..6 {
+            if s == 0 {
+                u[0].copy_from_slice(f);
+            } else {
+                for i in 0..n {
+                    self.stage[i] = y[i] + (0..s).map(|j| rodas4::A[s][j] * u[j][i]).sum::<f64>();
+                }
+                model.rhs(&self.stage, &mut self.fs);
+                stats.rhs_evals += 1;
+                for (i, v) in self.fs.iter_mut().enumerate() {
+                    *v += (0..s).map(|j| rodas4::C[s][j] * u[j][i]).sum::<f64>() / h;
+                }
+                u[s].copy_from_slice(&self.fs);
+            }
+            if solver.solve(&mut u[s]).is_err() {
+                return false;
+            }
+        }
+        // Stiffly accurate: y1 = Y6 + u6, and u6 is the error estimate.
+        for i in 0..n {
+            y_new[i] = y[i] + (0..5).map(|j| rodas4::A[5][j] * u[j][i]).sum::<f64>() + u[5][i];
+        }
+        true
+    }
+}
+
+/// Whether equilibrium is reached after an accepted step from `before` to `y` (see the module
+/// comment): within `TARGET_BAND` tolerances of the solved state, or the linearised distance
+/// within tolerance at two successive screened steps.
+fn equilibrium_test(
+    model: &RateModel,
+    options: &Options,
+    detector: &mut EquilibriumDetector,
+    jac: &mut [f64],
+    stats: &mut Stats,
+    (y, before, f): (&[f64], &[f64], &[f64]),
+    (t, h): (f64, f64),
+) -> bool {
+    let n = y.len();
+    let scale = |c: &[f64], i: usize| options.atol[i] + options.rtol * c[i].abs();
+    let at_target = options
+        .target
+        .as_ref()
+        .is_some_and(|c| (0..n).all(|i| (y[i] - c[i]).abs() <= TARGET_BAND * scale(c, i)));
+    if at_target {
+        return true;
+    }
+    let ratio = (t / h).min(SCREEN_RATIO);
+    let screened = (0..n).all(|i| (y[i] - before[i]).abs() * ratio <= EQUILIBRIUM_SCREEN * scale(y, i));
+    if !screened {
+        detector.reset();
+        return false;
+    }
+    stats.equilibrium_checks += 1;
+    model.jacobian(y, jac);
+    stats.jacobian_evals += 1;
+    let tol: Vec<f64> = (0..n).map(|i| scale(y, i)).collect();
+    detector.check(jac, f, &tol)
 }
 
 /// Step-size factor from the error norm for an order-3 embedded estimate.
