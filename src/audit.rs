@@ -229,155 +229,13 @@ impl Audit {
 /// Audits a network at its temperature.
 pub fn audit(network: &Network, tol_kj: f64, adjust: Adjust) -> Audit {
     let rt = rt_kj(network.temperature);
-    let dissolved = |i: usize| network.species[i].in_rate_laws();
     let mut steps = Vec::new();
     let mut warnings = Vec::new();
     let mut balance = Vec::new();
     for (j, r) in network.reactions.iter().enumerate() {
-        let number = j + 1;
-        let net = net_change(&r.reactants, &r.products);
-        let (forward_order, reverse_order) = r.orders();
-        let delta_n: f64 = net.iter().filter(|e| dissolved(e.0)).map(|e| e.1).sum();
-        let delta_n_gas: f64 = net
-            .iter()
-            .filter(|e| network.species[e.0].phase == Phase::Gas)
-            .map(|e| e.1)
-            .sum();
-        // K from a Gibbs energy is standard (1 mol/L for solutes, 1 bar for gases): as Kc.
-        let standard_to_kc = |k0: f64| kc_from_standard(k0, delta_n_gas, network.temperature);
-        let mut references = Vec::new();
-        let ratio = (r.reversible && r.kr > 0.0).then(|| r.kf / r.kr); // kf = 0 is reported, not skipped
-        if let Some(ratio) = ratio {
-            let mut push = |source: String, k: f64, independent: bool| {
-                references.push(Reference {
-                    source,
-                    k,
-                    ratio: ratio / k,
-                    deviation_kj_per_mol: rt * (ratio / k).ln(),
-                    independent,
-                })
-            };
-            if let Some(k) = r.k_given {
-                let source = if r.kr_given {
-                    "K given"
-                } else {
-                    "K given (defines kr)"
-                };
-                push(source.into(), k, r.kr_given);
-            }
-            if let Some(dg) = r.gibbs {
-                push(
-                    format!("dG = {dg} kJ/mol"),
-                    standard_to_kc((-dg / rt).exp()),
-                    true,
-                );
-            }
-            let formation: Option<f64> = net
-                .iter()
-                .map(|&(i, v)| network.species[i].gibbs_formation.map(|g| v * g))
-                .sum();
-            if let Some(dg) = formation {
-                push(
-                    format!("dGf of species: dG = {dg:.4} kJ/mol"),
-                    standard_to_kc((-dg / rt).exp()),
-                    true,
-                );
-            }
-        }
-        let name = |order: f64| rate_constant_units(order);
-        steps.push(StepFinding {
-            step: number,
-            equation: r.equation.clone(),
-            reversible: r.reversible,
-            kf: r.kf,
-            kr: r.kr,
-            kf_over_kr: ratio,
-            kf_units: name(forward_order),
-            kr_units: r.reversible.then(|| name(reverse_order)),
-            k_units: r.reversible.then(|| concentration_power(delta_n)),
-            k: references.iter().find(|r| r.independent).map(|r| r.k),
-            deviation_kj_per_mol: references
-                .iter()
-                .find(|r| r.independent)
-                .map(|r| r.deviation_kj_per_mol),
-            references,
-            activation: activation_check(network, r, &net, delta_n_gas, tol_kj),
-        });
-        // Element and charge balance, when every species of the step has a formula.
-        let formulas: Option<Vec<(&crate::network::Formula, f64, f64)>> = net
-            .iter()
-            .map(|&(i, v)| {
-                network.species[i]
-                    .formula
-                    .as_ref()
-                    .map(|f| (f, v, network.species[i].charge))
-            })
-            .collect();
-        if let Some(formulas) = formulas {
-            let mut elements: Vec<String> = Vec::new();
-            for (f, _, _) in &formulas {
-                for (e, _) in &f.elements {
-                    if !elements.contains(e) {
-                        elements.push(e.clone());
-                    }
-                }
-            }
-            let unbalanced: Vec<(String, f64)> = elements
-                .into_iter()
-                .map(|e| {
-                    let sum: f64 = formulas.iter().map(|(f, v, _)| v * f.count(&e)).sum();
-                    (e, sum)
-                })
-                .filter(|(_, sum)| sum.abs() > 1e-9)
-                .collect();
-            let charge: f64 = formulas.iter().map(|(_, v, z)| v * z).sum();
-            let charge = (charge.abs() > 1e-9).then_some(charge);
-            if !unbalanced.is_empty() || charge.is_some() {
-                balance.push(BalanceFinding {
-                    step: number,
-                    equation: r.equation.clone(),
-                    unbalanced,
-                    charge,
-                });
-            }
-        }
-        // Values beyond physical limits (common practice).
-        let frequency_limit = BOLTZMANN * network.temperature / PLANCK;
-        for (label, k, order) in [("kf", r.kf, forward_order), ("kr", r.kr, reverse_order)] {
-            if label == "kr" && !r.reversible {
-                continue;
-            }
-            if (order - 2.0).abs() < 1e-12 && k > DIFFUSION_LIMIT {
-                warnings.push(Warning {
-                    step: number,
-                    equation: r.equation.clone(),
-                    message: format!(
-                        "{label} = {k:.3e} L/(mol s) is above the diffusion limit of about 1e10 L/(mol s) in solution (common practice)"
-                    ),
-                });
-            }
-            if (order - 1.0).abs() < 1e-12 && k > 10.0 * frequency_limit {
-                warnings.push(Warning {
-                    step: number,
-                    equation: r.equation.clone(),
-                    message: format!(
-                        "{label} = {k:.3e} 1/s is above ten times kT/h = {frequency_limit:.2e} 1/s, the fastest a unimolecular step can be (common practice)"
-                    ),
-                });
-            }
-        }
-        if let Some(ratio) = ratio.filter(|r| *r > 0.0 && r.is_finite()) {
-            if ratio.log10().abs() > STIFF_DECADES {
-                warnings.push(Warning {
-                    step: number,
-                    equation: r.equation.clone(),
-                    message: format!(
-                        "kf/kr = {ratio:.3e} spans {:.0} decades: the step is all but one-way and makes the system extremely stiff; consider writing it with `=>`",
-                        ratio.log10().abs()
-                    ),
-                });
-            }
-        }
+        steps.push(step_finding(network, j + 1, r, rt, tol_kj));
+        balance.extend(balance_finding(network, j + 1, r));
+        warnings.extend(limit_warnings(network, j + 1, r));
     }
     let cycles = cycles(network, rt);
     let inconsistent_k = steps
@@ -405,6 +263,174 @@ pub fn audit(network: &Network, tol_kj: f64, adjust: Adjust) -> Audit {
         warnings,
         correction,
     }
+}
+
+/// kf/kr of one step against every equilibrium constant known for it, with the implied units.
+fn step_finding(
+    network: &Network,
+    number: usize,
+    r: &crate::network::Reaction,
+    rt: f64,
+    tol_kj: f64,
+) -> StepFinding {
+    let dissolved = |i: usize| network.species[i].in_rate_laws();
+    let net = net_change(&r.reactants, &r.products);
+    let (forward_order, reverse_order) = r.orders();
+    let delta_n: f64 = net.iter().filter(|e| dissolved(e.0)).map(|e| e.1).sum();
+    let delta_n_gas: f64 = net
+        .iter()
+        .filter(|e| network.species[e.0].phase == Phase::Gas)
+        .map(|e| e.1)
+        .sum();
+    // K from a Gibbs energy is standard (1 mol/L for solutes, 1 bar for gases): as Kc.
+    let standard_to_kc = |k0: f64| kc_from_standard(k0, delta_n_gas, network.temperature);
+    let mut references = Vec::new();
+    let ratio = (r.reversible && r.kr > 0.0).then(|| r.kf / r.kr); // kf = 0 is reported, not skipped
+    if let Some(ratio) = ratio {
+        let mut push = |source: String, k: f64, independent: bool| {
+            references.push(Reference {
+                source,
+                k,
+                ratio: ratio / k,
+                deviation_kj_per_mol: rt * (ratio / k).ln(),
+                independent,
+            })
+        };
+        if let Some(k) = r.k_given {
+            let source = if r.kr_given {
+                "K given"
+            } else {
+                "K given (defines kr)"
+            };
+            push(source.into(), k, r.kr_given);
+        }
+        if let Some(dg) = r.gibbs {
+            push(
+                format!("dG = {dg} kJ/mol"),
+                standard_to_kc((-dg / rt).exp()),
+                true,
+            );
+        }
+        let formation: Option<f64> = net
+            .iter()
+            .map(|&(i, v)| network.species[i].gibbs_formation.map(|g| v * g))
+            .sum();
+        if let Some(dg) = formation {
+            push(
+                format!("dGf of species: dG = {dg:.4} kJ/mol"),
+                standard_to_kc((-dg / rt).exp()),
+                true,
+            );
+        }
+    }
+    let name = |order: f64| rate_constant_units(order);
+    StepFinding {
+        step: number,
+        equation: r.equation.clone(),
+        reversible: r.reversible,
+        kf: r.kf,
+        kr: r.kr,
+        kf_over_kr: ratio,
+        kf_units: name(forward_order),
+        kr_units: r.reversible.then(|| name(reverse_order)),
+        k_units: r.reversible.then(|| concentration_power(delta_n)),
+        k: references.iter().find(|r| r.independent).map(|r| r.k),
+        deviation_kj_per_mol: references
+            .iter()
+            .find(|r| r.independent)
+            .map(|r| r.deviation_kj_per_mol),
+        references,
+        activation: activation_check(network, r, &net, delta_n_gas, tol_kj),
+    }
+}
+
+/// Element and charge balance of one step, when every species of it has a formula.
+fn balance_finding(network: &Network, number: usize, r: &crate::network::Reaction) -> Option<BalanceFinding> {
+    let net = net_change(&r.reactants, &r.products);
+    // Element and charge balance, when every species of the step has a formula.
+    let formulas: Option<Vec<(&crate::network::Formula, f64, f64)>> = net
+        .iter()
+        .map(|&(i, v)| {
+            network.species[i]
+                .formula
+                .as_ref()
+                .map(|f| (f, v, network.species[i].charge))
+        })
+        .collect();
+    if let Some(formulas) = formulas {
+        let mut elements: Vec<String> = Vec::new();
+        for (f, _, _) in &formulas {
+            for (e, _) in &f.elements {
+                if !elements.contains(e) {
+                    elements.push(e.clone());
+                }
+            }
+        }
+        let unbalanced: Vec<(String, f64)> = elements
+            .into_iter()
+            .map(|e| {
+                let sum: f64 = formulas.iter().map(|(f, v, _)| v * f.count(&e)).sum();
+                (e, sum)
+            })
+            .filter(|(_, sum)| sum.abs() > 1e-9)
+            .collect();
+        let charge: f64 = formulas.iter().map(|(_, v, z)| v * z).sum();
+        let charge = (charge.abs() > 1e-9).then_some(charge);
+        if !unbalanced.is_empty() || charge.is_some() {
+            return Some(BalanceFinding {
+                step: number,
+                equation: r.equation.clone(),
+                unbalanced,
+                charge,
+            });
+        }
+    }
+    None
+}
+
+/// Constants beyond physical limits, and steps all but one-way.
+fn limit_warnings(network: &Network, number: usize, r: &crate::network::Reaction) -> Vec<Warning> {
+    let mut warnings = Vec::new();
+    let (forward_order, reverse_order) = r.orders();
+    let ratio = (r.reversible && r.kr > 0.0).then(|| r.kf / r.kr);
+    // Values beyond physical limits (common practice).
+    let frequency_limit = BOLTZMANN * network.temperature / PLANCK;
+    for (label, k, order) in [("kf", r.kf, forward_order), ("kr", r.kr, reverse_order)] {
+        if label == "kr" && !r.reversible {
+            continue;
+        }
+        if (order - 2.0).abs() < 1e-12 && k > DIFFUSION_LIMIT {
+            warnings.push(Warning {
+                step: number,
+                equation: r.equation.clone(),
+                message: format!(
+                    "{label} = {k:.3e} L/(mol s) is above the diffusion limit of about 1e10 L/(mol s) in solution (common practice)"
+                ),
+            });
+        }
+        if (order - 1.0).abs() < 1e-12 && k > 10.0 * frequency_limit {
+            warnings.push(Warning {
+                step: number,
+                equation: r.equation.clone(),
+                message: format!(
+                    "{label} = {k:.3e} 1/s is above ten times kT/h = {frequency_limit:.2e} 1/s, the fastest a unimolecular step can be (common practice)"
+                ),
+            });
+        }
+    }
+    if let Some(ratio) = ratio.filter(|r| *r > 0.0 && r.is_finite()) {
+        if ratio.log10().abs() > STIFF_DECADES {
+            warnings.push(Warning {
+                step: number,
+                equation: r.equation.clone(),
+                message: format!(
+                    "kf/kr = {ratio:.3e} spans {:.0} decades: the step is all but one-way and makes the system extremely stiff; consider writing it with `=>`",
+                    ratio.log10().abs()
+                ),
+            });
+        }
+    }
+    warnings
 }
 
 /// The Arrhenius-versus-enthalpy check of one step, when kf and kr are both Arrhenius and the
