@@ -280,6 +280,16 @@ impl Network {
 }
 
 /// Walks the spanned TOML tree so that every message can name a line.
+/// A step's equation, parsed and resolved against the species.
+struct ResolvedEquation {
+    text: String,
+    line: usize,
+    span: Range<usize>,
+    reversible: bool,
+    reactants: Vec<(usize, f64)>,
+    products: Vec<(usize, f64)>,
+}
+
 struct Reader<'a> {
     file: &'a Path,
     text: &'a str,
@@ -528,6 +538,119 @@ impl<'a> Reader<'a> {
                 ));
             }
         }
+        let ResolvedEquation {
+            text: equation,
+            line,
+            span: eq_span,
+            reversible,
+            reactants,
+            products,
+        } = self.resolved_equation(table, item, field, species)?;
+
+        let forward_orders = self.orders(
+            table.get("orders"),
+            &format!("{field}.orders"),
+            &reactants,
+            species,
+        )?;
+        let reverse_orders = if reversible {
+            self.orders(
+                table.get("reverse_orders"),
+                &format!("{field}.reverse_orders"),
+                &products,
+                species,
+            )?
+        } else {
+            if let Some(v) = table.get("reverse_orders") {
+                return Err(self.error(
+                    Some(v.span()),
+                    &format!("{field}.reverse_orders"),
+                    "a one-way step has no reverse rate",
+                ));
+            }
+            Vec::new()
+        };
+        let sum = |o: &[(usize, f64)]| o.iter().map(|e| e.1).sum::<f64>();
+        let (forward_order, reverse_order) = (sum(&forward_orders), sum(&reverse_orders));
+        let kf_field = format!("{field}.kf");
+        let Some(kf_value) = table.get("kf") else {
+            return Err(self.error(
+                Some(item.span()),
+                &kf_field,
+                "missing: every reaction needs a forward rate constant kf",
+            ));
+        };
+        let origin = |v: &Value<'_>, field: String| Origin {
+            line: Some(self.line_of(v.span().start)),
+            field,
+        };
+        let kf_spec = self.rate_constant(kf_value, &kf_field, forward_order)?;
+        let kf_origin = origin(kf_value, kf_field.clone());
+        let (kr_spec, kr_origin) = match table.get("kr") {
+            Some(v) => {
+                let kr_field = format!("{field}.kr");
+                (
+                    Some(self.rate_constant(v, &kr_field, reverse_order)?),
+                    origin(v, kr_field),
+                )
+            }
+            None => (None, Origin::default()),
+        };
+        let k_spec = self.equilibrium_spec(table, field, species, &reactants, &products)?;
+        if reversible {
+            if kr_spec.is_none() && k_spec.is_none() {
+                return Err(self.error(
+                    Some(eq_span.clone()),
+                    field,
+                    "a reversible step (`<=>`) needs either kr or the equilibrium constant K (or Kp)",
+                ));
+            }
+        } else if let Some(key) = ["kr", "K", "Kp"].into_iter().find(|k| table.get(*k).is_some()) {
+            let sub = format!("{field}.{key}");
+            return Err(self.error(
+                table.get(key).map(|v| v.span()),
+                &sub,
+                "a one-way step (`=>`) takes only kf; write `<=>` for a reversible step",
+            ));
+        }
+        let gibbs = match table.get("dG") {
+            Some(v) => Some(self.energy_kj(v, &format!("{field}.dG"))?),
+            None => None,
+        };
+        // The numbers (kf, kr, K at the run temperature) are filled in by `Network::evaluate`.
+        Ok(Reaction {
+            equation,
+            line,
+            reactants,
+            products,
+            reversible,
+            kf: 0.0,
+            kr: 0.0,
+            k_given: None,
+            kr_given: table.get("kr").is_some(),
+            k_source: None,
+            enthalpy: None,
+            kf_arrhenius: None,
+            kr_arrhenius: None,
+            kf_spec,
+            kf_origin,
+            kr_spec,
+            kr_origin,
+            k_spec,
+            gibbs,
+            forward_orders,
+            reverse_orders,
+        })
+    }
+
+    /// The `equation` field read, parsed and resolved against the species.
+    fn resolved_equation(
+        &self,
+        table: &DeTable<'_>,
+        item: &Value<'_>,
+        field: &str,
+        species: &[Species],
+    ) -> Result<ResolvedEquation, InputError> {
         let eq_field = format!("{field}.equation");
         let Some(eq_value) = table.get("equation") else {
             return Err(self.error(
@@ -573,58 +696,27 @@ impl<'a> Reader<'a> {
                 ),
             ));
         }
+        Ok(ResolvedEquation {
+            text: equation.to_string(),
+            line,
+            span: eq_value.span(),
+            reversible: parsed.reversible,
+            reactants,
+            products,
+        })
+    }
 
-        let forward_orders = self.orders(
-            table.get("orders"),
-            &format!("{field}.orders"),
-            &reactants,
-            species,
-        )?;
-        let reverse_orders = if parsed.reversible {
-            self.orders(
-                table.get("reverse_orders"),
-                &format!("{field}.reverse_orders"),
-                &products,
-                species,
-            )?
-        } else {
-            if let Some(v) = table.get("reverse_orders") {
-                return Err(self.error(
-                    Some(v.span()),
-                    &format!("{field}.reverse_orders"),
-                    "a one-way step has no reverse rate",
-                ));
-            }
-            Vec::new()
-        };
-        let sum = |o: &[(usize, f64)]| o.iter().map(|e| e.1).sum::<f64>();
-        let (forward_order, reverse_order) = (sum(&forward_orders), sum(&reverse_orders));
-        let kf_field = format!("{field}.kf");
-        let Some(kf_value) = table.get("kf") else {
-            return Err(self.error(
-                Some(item.span()),
-                &kf_field,
-                "missing: every reaction needs a forward rate constant kf",
-            ));
-        };
-        let origin = |v: &Value<'_>, field: String| Origin {
-            line: Some(self.line_of(v.span().start)),
-            field,
-        };
-        let kf_spec = self.rate_constant(kf_value, &kf_field, forward_order)?;
-        let kf_origin = origin(kf_value, kf_field.clone());
-        let (kr_spec, kr_origin) = match table.get("kr") {
-            Some(v) => {
-                let kr_field = format!("{field}.kr");
-                (
-                    Some(self.rate_constant(v, &kr_field, reverse_order)?),
-                    origin(v, kr_field),
-                )
-            }
-            None => (None, Origin::default()),
-        };
+    /// K or Kp, when the step gives one, in the form it was written.
+    fn equilibrium_spec(
+        &self,
+        table: &DeTable<'_>,
+        field: &str,
+        species: &[Species],
+        reactants: &[(usize, f64)],
+        products: &[(usize, f64)],
+    ) -> Result<Option<KGiven>, InputError> {
         // Δn over the species whose concentrations enter K, and over the gases alone.
-        let net = net_change(&reactants, &products);
+        let net = net_change(reactants, products);
         let delta_n: f64 = net
             .iter()
             .filter(|e| species[e.0].in_rate_laws())
@@ -636,7 +728,7 @@ impl<'a> Reader<'a> {
             .map(|e| e.1)
             .sum();
         let all_gas = net.iter().all(|e| species[e.0].phase != Phase::Dissolved);
-        let k_spec = match (table.get("K"), table.get("Kp")) {
+        Ok(match (table.get("K"), table.get("Kp")) {
             (Some(_), Some(v)) => {
                 return Err(self.error(
                     Some(v.span()),
@@ -658,50 +750,6 @@ impl<'a> Reader<'a> {
                 Some(self.equilibrium_constant(v, &format!("{field}.Kp"), true, delta_n, delta_n_gas)?)
             }
             (None, None) => None,
-        };
-        if parsed.reversible {
-            if kr_spec.is_none() && k_spec.is_none() {
-                return Err(self.error(
-                    Some(eq_value.span()),
-                    field,
-                    "a reversible step (`<=>`) needs either kr or the equilibrium constant K (or Kp)",
-                ));
-            }
-        } else if let Some(key) = ["kr", "K", "Kp"].into_iter().find(|k| table.get(*k).is_some()) {
-            let sub = format!("{field}.{key}");
-            return Err(self.error(
-                table.get(key).map(|v| v.span()),
-                &sub,
-                "a one-way step (`=>`) takes only kf; write `<=>` for a reversible step",
-            ));
-        }
-        let gibbs = match table.get("dG") {
-            Some(v) => Some(self.energy_kj(v, &format!("{field}.dG"))?),
-            None => None,
-        };
-        // The numbers (kf, kr, K at the run temperature) are filled in by `Network::evaluate`.
-        Ok(Reaction {
-            equation: equation.to_string(),
-            line,
-            reactants,
-            products,
-            reversible: parsed.reversible,
-            kf: 0.0,
-            kr: 0.0,
-            k_given: None,
-            kr_given: table.get("kr").is_some(),
-            k_source: None,
-            enthalpy: None,
-            kf_arrhenius: None,
-            kr_arrhenius: None,
-            kf_spec,
-            kf_origin,
-            kr_spec,
-            kr_origin,
-            k_spec,
-            gibbs,
-            forward_orders,
-            reverse_orders,
         })
     }
 
