@@ -27,6 +27,10 @@ const PHASE_SEARCH_LIMIT: usize = 12;
 /// activity) would form again: that assemblage is not the equilibrium.
 const SATURATION_TOL: f64 = 1e-6;
 
+/// A sparse linear condition and its right-hand side: a conservation law with its total, or a
+/// K equation with ln K.
+type Law = (Row, f64);
+
 /// A solved equilibrium.
 #[derive(Debug, Clone, PartialEq)]
 pub struct Equilibrium {
@@ -211,43 +215,7 @@ fn solve_with(
         .collect();
     let present: Vec<usize> = (0..n).filter(|&i| !dissolved(i) && !absent[i]).collect();
 
-    // Conservation laws with no present pure phase in them, found directly from N (sparse,
-    // independent of the basis shown to the user): what the dissolved species must total.
-    let mut elimination = Echelon::new(n);
-    for column in &stoich.columns {
-        elimination.insert(column, 0.0);
-    }
-    // Species in no step (spectators) keep their initial amount: held fixed like the present
-    // pure phases, they drop out of the laws, so a large list of them costs nothing.
-    let mut in_a_step = vec![false; n];
-    for column in &stoich.columns {
-        for e in column {
-            in_a_step[e.0] = true;
-        }
-    }
-    for i in (0..n).filter(|&i| present.contains(&i) || !in_a_step[i]) {
-        elimination.insert(&[(i, 1.0)], 0.0);
-    }
-    let scale = c0
-        .iter()
-        .fold(0.0_f64, |m, c| m.max(c.abs()))
-        .max(f64::MIN_POSITIVE);
-    let mut reduced: Vec<(Row, f64)> = Vec::new();
-    for law in elimination.null_space() {
-        let total: f64 = law.iter().map(|&(i, v)| v * c0[i]).sum();
-        let row: Row = law
-            .iter()
-            .copied()
-            .filter(|e| dissolved(e.0) && e.1 != 0.0)
-            .collect();
-        if !row.is_empty() {
-            reduced.push((row, total));
-        } else if total.abs() > 1e-12 * scale {
-            // Only used-up phases in a law with a non-zero total: one of them must be there.
-            let p = law.iter().find(|e| absent[e.0]).map_or(0, |e| e.0);
-            return Err(NoEquilibrium::PurePhaseReforms(network.species[p].name.clone()));
-        }
-    }
+    let (reduced, in_a_step, scale) = reduced_laws(network, stoich, c0, absent, &present)?;
     let zero: Vec<bool> = reachable(network, c0)
         .iter()
         .enumerate()
@@ -261,57 +229,9 @@ fn solve_with(
         column_of[i] = k;
     }
 
-    // g: one solution of νᵀ g = ln K over the positive dissolved species.
-    let mut k_equations = Echelon::new(positive.len());
-    let mut k_rows = Vec::new();
-    for &j in &active {
-        let r = &network.reactions[j];
-        let touches_zero = |side: &[(usize, f64)]| side.iter().any(|e| zero[e.0]);
-        match (touches_zero(&r.forward_orders), touches_zero(&r.reverse_orders)) {
-            (true, true) => continue, // both rates vanish
-            (false, false) => {}
-            _ => {
-                return Err(NoEquilibrium::Infeasible(format!(
-                    "`{}` cannot balance: one side needs a species that conservation holds at zero",
-                    r.equation
-                )))
-            }
-        }
-        let row: Row = stoich.columns[j]
-            .iter()
-            .filter(|e| column_of[e.0] != usize::MAX)
-            .map(|e| (column_of[e.0], e.1))
-            .collect();
-        let ln_k = (r.kf / r.kr).ln();
-        if let Insert::Dependent { residual } = k_equations.insert(&row, ln_k) {
-            if residual.abs() > CYCLE_TOL * (1.0 + ln_k.abs()) {
-                return Err(NoEquilibrium::InconsistentCycle {
-                    step: r.equation.clone(),
-                    mismatch: residual,
-                });
-            }
-        }
-        k_rows.push((row, ln_k));
-    }
-    let g = k_equations.particular_solution();
+    let (g, k_rows) = k_equations(network, stoich, &active, &zero, &column_of, positive.len())?;
 
-    // The laws over the positive species; with the zero species left out some coincide, so
-    // only independent ones are kept (a dependent one must agree on its total).
-    let mut independent = Echelon::new(positive.len());
-    let mut laws_pos: Vec<(Row, f64)> = Vec::new();
-    for (row, total) in reduced {
-        let row: Row = row
-            .iter()
-            .filter(|e| column_of[e.0] != usize::MAX)
-            .map(|e| (column_of[e.0], e.1))
-            .collect();
-        let size = row.iter().fold(total.abs(), |m, e| m.max(e.1.abs() * scale));
-        match independent.insert(&row, total) {
-            Insert::Independent => laws_pos.push((row, total)),
-            Insert::Dependent { residual } if residual.abs() > 1e-9 * size => return Err(infeasible()),
-            Insert::Dependent { .. } => {}
-        }
-    }
+    let laws_pos = independent_laws(reduced, &column_of, positive.len(), scale)?;
     let start: Vec<f64> = positive.iter().map(|&i| c0[i]).collect();
     let (c_pos, iterations) = maximise_dual(&g, &laws_pos, &start)?;
 
@@ -351,6 +271,132 @@ fn solve_with(
             .map(|i| network.species[i].name.clone())
             .collect(),
     })
+}
+
+/// Conservation laws with no present pure phase and no spectator in them, found directly from N
+/// (sparse, independent of the basis shown to the user): what the dissolved species must total.
+/// Also which species take part in a step, and the scale of the initial amounts.
+fn reduced_laws(
+    network: &Network,
+    stoich: &Stoichiometry,
+    c0: &[f64],
+    absent: &[bool],
+    present: &[usize],
+) -> Result<(Vec<Law>, Vec<bool>, f64), NoEquilibrium> {
+    let n = network.n_species();
+    let dissolved = |i: usize| network.species[i].in_rate_laws();
+    // Conservation laws with no present pure phase in them, found directly from N (sparse,
+    // independent of the basis shown to the user): what the dissolved species must total.
+    let mut elimination = Echelon::new(n);
+    for column in &stoich.columns {
+        elimination.insert(column, 0.0);
+    }
+    // Species in no step (spectators) keep their initial amount: held fixed like the present
+    // pure phases, they drop out of the laws, so a large list of them costs nothing.
+    let mut in_a_step = vec![false; n];
+    for column in &stoich.columns {
+        for e in column {
+            in_a_step[e.0] = true;
+        }
+    }
+    for i in (0..n).filter(|&i| present.contains(&i) || !in_a_step[i]) {
+        elimination.insert(&[(i, 1.0)], 0.0);
+    }
+    let scale = c0
+        .iter()
+        .fold(0.0_f64, |m, c| m.max(c.abs()))
+        .max(f64::MIN_POSITIVE);
+    let mut reduced: Vec<(Row, f64)> = Vec::new();
+    for law in elimination.null_space() {
+        let total: f64 = law.iter().map(|&(i, v)| v * c0[i]).sum();
+        let row: Row = law
+            .iter()
+            .copied()
+            .filter(|e| dissolved(e.0) && e.1 != 0.0)
+            .collect();
+        if !row.is_empty() {
+            reduced.push((row, total));
+        } else if total.abs() > 1e-12 * scale {
+            // Only used-up phases in a law with a non-zero total: one of them must be there.
+            let p = law.iter().find(|e| absent[e.0]).map_or(0, |e| e.0);
+            return Err(NoEquilibrium::PurePhaseReforms(network.species[p].name.clone()));
+        }
+    }
+    Ok((reduced, in_a_step, scale))
+}
+
+/// g, one solution of νᵀ g = ln K over the positive dissolved species, and the K rows; fails
+/// when the equilibrium constants contradict each other around a cycle.
+fn k_equations(
+    network: &Network,
+    stoich: &Stoichiometry,
+    active: &[usize],
+    zero: &[bool],
+    column_of: &[usize],
+    n_positive: usize,
+) -> Result<(Vec<f64>, Vec<Law>), NoEquilibrium> {
+    // g: one solution of νᵀ g = ln K over the positive dissolved species.
+    let mut k_equations = Echelon::new(n_positive);
+    let mut k_rows = Vec::new();
+    for &j in active {
+        let r = &network.reactions[j];
+        let touches_zero = |side: &[(usize, f64)]| side.iter().any(|e| zero[e.0]);
+        match (touches_zero(&r.forward_orders), touches_zero(&r.reverse_orders)) {
+            (true, true) => continue, // both rates vanish
+            (false, false) => {}
+            _ => {
+                return Err(NoEquilibrium::Infeasible(format!(
+                    "`{}` cannot balance: one side needs a species that conservation holds at zero",
+                    r.equation
+                )))
+            }
+        }
+        let row: Row = stoich.columns[j]
+            .iter()
+            .filter(|e| column_of[e.0] != usize::MAX)
+            .map(|e| (column_of[e.0], e.1))
+            .collect();
+        let ln_k = (r.kf / r.kr).ln();
+        if let Insert::Dependent { residual } = k_equations.insert(&row, ln_k) {
+            if residual.abs() > CYCLE_TOL * (1.0 + ln_k.abs()) {
+                return Err(NoEquilibrium::InconsistentCycle {
+                    step: r.equation.clone(),
+                    mismatch: residual,
+                });
+            }
+        }
+        k_rows.push((row, ln_k));
+    }
+    let g = k_equations.particular_solution();
+    Ok((g, k_rows))
+}
+
+/// The laws over the positive species; with the zero species left out some coincide, so only
+/// independent ones are kept (a dependent one must agree on its total).
+fn independent_laws(
+    reduced: Vec<(Row, f64)>,
+    column_of: &[usize],
+    n_positive: usize,
+    scale: f64,
+) -> Result<Vec<(Row, f64)>, NoEquilibrium> {
+    // The laws over the positive species; with the zero species left out some coincide, so
+    // only independent ones are kept (a dependent one must agree on its total).
+    let mut independent = Echelon::new(n_positive);
+    let mut laws_pos: Vec<(Row, f64)> = Vec::new();
+    for (row, total) in reduced {
+        let row: Row = row
+            .iter()
+            .filter(|e| column_of[e.0] != usize::MAX)
+            .map(|e| (column_of[e.0], e.1))
+            .collect();
+        let size = row.iter().fold(total.abs(), |m, e| m.max(e.1.abs() * scale));
+        match independent.insert(&row, total) {
+            Insert::Independent => laws_pos.push((row, total)),
+            Insert::Dependent { residual } if residual.abs() > 1e-9 * size => return Err(infeasible()),
+            Insert::Dependent { .. } => {}
+        }
+    }
+    Ok(laws_pos)
 }
 
 /// Species that can ever be present: those there at the start and those a step can make from
