@@ -181,46 +181,27 @@ pub fn run(network: &Network, settings: &RunSettings) -> Result<RunResult, Error
         (Some(integrated), _) => Some(integrated),
         (None, _) => None,
     };
-    let settling = match settle_reference {
-        Some(eq) => {
-            let noise = noise_levels(eq, &atol, settings.rtol);
-            analysis::time_to_equilibrium(trajectory, eq, &noise, &settings.tolerances, &names)
-        }
-        None => settings
-            .tolerances
-            .iter()
-            .map(|&tolerance| Settling {
-                tolerance,
-                seconds: None,
-                limiting_species: None,
-            })
-            .collect(),
-    };
+    let settling = settling(
+        trajectory,
+        settle_reference.map(|c| c.as_slice()),
+        &atol,
+        settings,
+        &names,
+    );
     let drift = analysis::conservation_drift(trajectory, &stoichiometry.conservation);
     let reference = solved
         .as_ref()
         .ok()
-        .map(|e| e.concentrations.clone())
-        .or_else(|| equilibrium.clone());
-    let c0 = &trajectory.states[0];
-    let progress = (0..network.n_species())
-        .map(|i| {
-            let target = reference.as_ref()?[i];
-            let change = target - c0[i];
-            let noise = atol[i] + settings.rtol * target.abs();
-            (change.abs() > 100.0 * noise).then(|| (final_state[i] - c0[i]) / change)
-        })
-        .collect();
-    let mut settings = settings.clone();
-    if let Some(every) = settings.output_every {
-        // At most 100 000 rows, however small the interval.
-        let count = ((final_time / every).floor() as usize).min(100_000);
-        settings
-            .output_times
-            .extend((0..=count).map(|k| k as f64 * every));
-    }
-    settings.output_times.sort_by(f64::total_cmp);
-    settings.output_times.dedup();
+        .map(|e| e.concentrations.as_slice())
+        .or(equilibrium.as_deref());
+    let progress = progress(
+        &trajectory.states[0],
+        &final_state,
+        reference,
+        &atol,
+        settings.rtol,
+    );
+    let settings = with_output_times(settings, final_time);
     Ok(RunResult {
         network: network.clone(),
         stoichiometry,
@@ -239,6 +220,65 @@ pub fn run(network: &Network, settings: &RunSettings) -> Result<RunResult, Error
         progress,
         audit: audit::audit(network, audit::DEFAULT_TOL_KJ, audit::Adjust::Kr),
     })
+}
+
+/// Times to equilibrium at each tolerance against `reference` (none without one).
+fn settling(
+    trajectory: &integrate::Trajectory,
+    reference: Option<&[f64]>,
+    atol: &[f64],
+    settings: &RunSettings,
+    names: &[String],
+) -> Vec<Settling> {
+    match reference {
+        Some(eq) => {
+            let noise = noise_levels(eq, atol, settings.rtol);
+            analysis::time_to_equilibrium(trajectory, eq, &noise, &settings.tolerances, names)
+        }
+        None => settings
+            .tolerances
+            .iter()
+            .map(|&tolerance| Settling {
+                tolerance,
+                seconds: None,
+                limiting_species: None,
+            })
+            .collect(),
+    }
+}
+
+/// Per species, the fraction of its total change completed at the final time (None where the
+/// change is within 100 tolerances or no equilibrium is known).
+fn progress(
+    c0: &[f64],
+    last: &[f64],
+    reference: Option<&[f64]>,
+    atol: &[f64],
+    rtol: f64,
+) -> Vec<Option<f64>> {
+    (0..c0.len())
+        .map(|i| {
+            let target = reference?[i];
+            let change = target - c0[i];
+            let noise = atol[i] + rtol * target.abs();
+            (change.abs() > 100.0 * noise).then(|| (last[i] - c0[i]) / change)
+        })
+        .collect()
+}
+
+/// The settings with `output_every` spelled out into sorted output times (at most 100 000 rows,
+/// however small the interval).
+fn with_output_times(settings: &RunSettings, final_time: f64) -> RunSettings {
+    let mut settings = settings.clone();
+    if let Some(every) = settings.output_every {
+        let count = ((final_time / every).floor() as usize).min(100_000);
+        settings
+            .output_times
+            .extend((0..=count).map(|k| k as f64 * every));
+    }
+    settings.output_times.sort_by(f64::total_cmp);
+    settings.output_times.dedup();
+    settings
 }
 
 /// How many slowest relaxation times the integration allows before it gives up. The linearised
