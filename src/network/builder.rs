@@ -139,109 +139,12 @@ impl NetworkBuilder {
         if self.reactions.is_empty() {
             return Err(fail("reaction".into(), "the network has no reaction".into()));
         }
-        let mut reactions = Vec::new();
-        for (j, pending) in self.reactions.iter().enumerate() {
-            let field = format!("reaction[{}]", j + 1);
-            let eq_field = format!("{field}.equation");
-            let parsed = parse_equation(&pending.equation).map_err(|m| fail(eq_field.clone(), m))?;
-            let resolve = |side: &[(String, f64)]| -> Result<Vec<(usize, f64)>, InputError> {
-                side.iter()
-                    .map(|(name, c)| {
-                        if *c > limits::MAX_COEFFICIENT {
-                            return Err(fail(
-                                eq_field.clone(),
-                                format!(
-                                    "the coefficient {c:e} of `{name}` is above {}",
-                                    limits::MAX_COEFFICIENT
-                                ),
-                            ));
-                        }
-                        species
-                            .iter()
-                            .position(|s| &s.name == name)
-                            .map(|i| (i, *c))
-                            .ok_or_else(|| fail(eq_field.clone(), format!("unknown species `{name}`")))
-                    })
-                    .collect()
-            };
-            let reactants = resolve(&parsed.reactants)?;
-            let products = resolve(&parsed.products)?;
-            let mass_action = |side: &[(usize, f64)]| -> Vec<(usize, f64)> {
-                side.iter()
-                    .copied()
-                    .filter(|e| species[e.0].in_rate_laws())
-                    .collect()
-            };
-            let constant = |k: f64, key: &str| -> Result<RateGiven, InputError> {
-                if !(k.is_finite() && k >= 0.0) {
-                    return Err(fail(
-                        format!("{field}.{key}"),
-                        "must be a finite number ≥ 0".into(),
-                    ));
-                }
-                Ok(RateGiven::Value(k.abs()))
-            };
-            match (parsed.reversible, pending.kr.is_some() || pending.k.is_some()) {
-                (true, false) => {
-                    return Err(fail(
-                        field.clone(),
-                        "a reversible step (`<=>`) needs either kr or the equilibrium constant".into(),
-                    ))
-                }
-                (false, true) => {
-                    return Err(fail(field.clone(), "a one-way step (`=>`) takes only kf".into()));
-                }
-                _ => {}
-            }
-            let k_spec = match pending.k {
-                Some(k) if !(k.is_finite() && k > 0.0) => {
-                    return Err(fail(format!("{field}.K"), "must be positive".into()))
-                }
-                Some(k) => Some(KGiven {
-                    form: KForm::Value(k),
-                    is_kp: false,
-                    delta_n_gas: 0.0,
-                    origin: Origin {
-                        line: None,
-                        field: format!("{field}.K"),
-                    },
-                }),
-                None => None,
-            };
-            reactions.push(Reaction {
-                equation: pending.equation.clone(),
-                line: 0,
-                forward_orders: mass_action(&reactants),
-                reverse_orders: if parsed.reversible {
-                    mass_action(&products)
-                } else {
-                    Vec::new()
-                },
-                reactants,
-                products,
-                reversible: parsed.reversible,
-                kf: 0.0,
-                kr: 0.0,
-                k_given: None,
-                kr_given: pending.kr.is_some(),
-                k_source: None,
-                enthalpy: None,
-                kf_arrhenius: None,
-                kr_arrhenius: None,
-                kf_spec: constant(pending.kf, "kf")?,
-                kf_origin: Origin {
-                    line: None,
-                    field: format!("{field}.kf"),
-                },
-                kr_spec: pending.kr.map(|kr| constant(kr, "kr")).transpose()?,
-                kr_origin: Origin {
-                    line: None,
-                    field: format!("{field}.kr"),
-                },
-                k_spec,
-                gibbs: None,
-            });
-        }
+        let reactions = self
+            .reactions
+            .iter()
+            .enumerate()
+            .map(|(j, pending)| built_reaction(pending, j, &species, &file))
+            .collect::<Result<Vec<Reaction>, InputError>>()?;
         let network = Network {
             source: file.clone(),
             source_text: String::new(),
@@ -252,4 +155,119 @@ impl NetworkBuilder {
         };
         network.at_temperature(self.temperature)
     }
+}
+
+/// One pending step checked and resolved against the species.
+fn built_reaction(
+    pending: &Pending,
+    j: usize,
+    species: &[Species],
+    file: &std::path::Path,
+) -> Result<Reaction, InputError> {
+    let fail = |field: String, message: String| InputError {
+        file: file.to_path_buf(),
+        line: None,
+        field,
+        message,
+    };
+    let field = format!("reaction[{}]", j + 1);
+    let eq_field = format!("{field}.equation");
+    let parsed = parse_equation(&pending.equation).map_err(|m| fail(eq_field.clone(), m))?;
+    let resolve = |side: &[(String, f64)]| -> Result<Vec<(usize, f64)>, InputError> {
+        side.iter()
+            .map(|(name, c)| {
+                if *c > limits::MAX_COEFFICIENT {
+                    return Err(fail(
+                        eq_field.clone(),
+                        format!(
+                            "the coefficient {c:e} of `{name}` is above {}",
+                            limits::MAX_COEFFICIENT
+                        ),
+                    ));
+                }
+                species
+                    .iter()
+                    .position(|s| &s.name == name)
+                    .map(|i| (i, *c))
+                    .ok_or_else(|| fail(eq_field.clone(), format!("unknown species `{name}`")))
+            })
+            .collect()
+    };
+    let reactants = resolve(&parsed.reactants)?;
+    let products = resolve(&parsed.products)?;
+    let mass_action = |side: &[(usize, f64)]| -> Vec<(usize, f64)> {
+        side.iter()
+            .copied()
+            .filter(|e| species[e.0].in_rate_laws())
+            .collect()
+    };
+    let constant = |k: f64, key: &str| -> Result<RateGiven, InputError> {
+        if !(k.is_finite() && k >= 0.0) {
+            return Err(fail(
+                format!("{field}.{key}"),
+                "must be a finite number ≥ 0".into(),
+            ));
+        }
+        Ok(RateGiven::Value(k.abs()))
+    };
+    match (parsed.reversible, pending.kr.is_some() || pending.k.is_some()) {
+        (true, false) => {
+            return Err(fail(
+                field.clone(),
+                "a reversible step (`<=>`) needs either kr or the equilibrium constant".into(),
+            ))
+        }
+        (false, true) => {
+            return Err(fail(field.clone(), "a one-way step (`=>`) takes only kf".into()));
+        }
+        _ => {}
+    }
+    let k_spec = match pending.k {
+        Some(k) if !(k.is_finite() && k > 0.0) => {
+            return Err(fail(format!("{field}.K"), "must be positive".into()))
+        }
+        Some(k) => Some(KGiven {
+            form: KForm::Value(k),
+            is_kp: false,
+            delta_n_gas: 0.0,
+            origin: Origin {
+                line: None,
+                field: format!("{field}.K"),
+            },
+        }),
+        None => None,
+    };
+    Ok(Reaction {
+        equation: pending.equation.clone(),
+        line: 0,
+        forward_orders: mass_action(&reactants),
+        reverse_orders: if parsed.reversible {
+            mass_action(&products)
+        } else {
+            Vec::new()
+        },
+        reactants,
+        products,
+        reversible: parsed.reversible,
+        kf: 0.0,
+        kr: 0.0,
+        k_given: None,
+        kr_given: pending.kr.is_some(),
+        k_source: None,
+        enthalpy: None,
+        kf_arrhenius: None,
+        kr_arrhenius: None,
+        kf_spec: constant(pending.kf, "kf")?,
+        kf_origin: Origin {
+            line: None,
+            field: format!("{field}.kf"),
+        },
+        kr_spec: pending.kr.map(|kr| constant(kr, "kr")).transpose()?,
+        kr_origin: Origin {
+            line: None,
+            field: format!("{field}.kr"),
+        },
+        k_spec,
+        gibbs: None,
+    })
 }
