@@ -426,48 +426,8 @@ impl<'a> Reader<'a> {
                 DeValue::Table(props) => {
                     for (prop, v) in props.iter() {
                         let sub = format!("{field}.{}", prop.get_ref());
-                        match prop.get_ref().as_ref() {
-                            "initial" => initial = Some(v),
-                            "atol" => {
-                                let atol = self.quantity(v, &sub, Dimension::concentration(), 1.0)?;
-                                if atol <= 0.0 {
-                                    return Err(self.error(Some(v.span()), &sub, "must be positive"));
-                                }
-                                item.atol = Some(atol);
-                            }
-                            "formula" => {
-                                let text = self.string(v, &sub)?;
-                                item.formula =
-                                    Some(parse_formula(text).map_err(|m| self.error(Some(v.span()), &sub, m))?);
-                            }
-                            "charge" => item.charge = self.number(v, &sub)?,
-                            "dGf" => item.gibbs_formation = Some(self.energy_kj(v, &sub)?),
-                            "dHf" => item.enthalpy_formation = Some(self.energy_kj(v, &sub)?),
-                            "phase" => {
-                                item.phase = match self.string(v, &sub)? {
-                                    "solution" | "dissolved" => Phase::Dissolved,
-                                    "solid" | "liquid" => Phase::Pure,
-                                    "gas" => Phase::Gas,
-                                    other => {
-                                        return Err(self.error(
-                                            Some(v.span()),
-                                            &sub,
-                                            format!(
-                                        "unknown phase `{other}`; use \"solution\", \"gas\", \"solid\" or \"liquid\""
-                                    ),
-                                        ))
-                                    }
-                                }
-                            }
-                            other => {
-                                return Err(self.error(
-                                    Some(prop.span()),
-                                    &sub,
-                                    format!(
-                                        "unknown property `{other}`; expected initial, phase, atol, formula, charge, dGf or dHf"
-                                    ),
-                                ))
-                            }
+                        if self.species_property(&mut item, prop.get_ref().as_ref(), prop.span(), v, &sub)? {
+                            initial = Some(v);
                         }
                     }
                 }
@@ -833,6 +793,59 @@ impl<'a> Reader<'a> {
             }
             _ => Ok(self.number(value, field)? * plain_factor),
         }
+    }
+
+    /// One property of a species table other than `initial` (which is returned as true, to be
+    /// read once the phase is known).
+    fn species_property(
+        &self,
+        item: &mut Species,
+        prop: &str,
+        prop_span: Range<usize>,
+        v: &Value<'_>,
+        sub: &str,
+    ) -> Result<bool, InputError> {
+        match prop {
+            "initial" => return Ok(true),
+            "atol" => {
+                let atol = self.quantity(v, sub, Dimension::concentration(), 1.0)?;
+                if atol <= 0.0 {
+                    return Err(self.error(Some(v.span()), sub, "must be positive"));
+                }
+                item.atol = Some(atol);
+            }
+            "formula" => {
+                let text = self.string(v, sub)?;
+                item.formula = Some(parse_formula(text).map_err(|m| self.error(Some(v.span()), sub, m))?);
+            }
+            "charge" => item.charge = self.number(v, sub)?,
+            "dGf" => item.gibbs_formation = Some(self.energy_kj(v, sub)?),
+            "dHf" => item.enthalpy_formation = Some(self.energy_kj(v, sub)?),
+            "phase" => {
+                item.phase = match self.string(v, sub)? {
+                    "solution" | "dissolved" => Phase::Dissolved,
+                    "solid" | "liquid" => Phase::Pure,
+                    "gas" => Phase::Gas,
+                    other => {
+                        return Err(self.error(
+                            Some(v.span()),
+                            sub,
+                            format!(
+                                "unknown phase `{other}`; use \"solution\", \"gas\", \"solid\" or \"liquid\""
+                            ),
+                        ))
+                    }
+                }
+            }
+            other => return Err(self.error(
+                Some(prop_span.clone()),
+                sub,
+                format!(
+                    "unknown property `{other}`; expected initial, phase, atol, formula, charge, dGf or dHf"
+                ),
+            )),
+        }
+        Ok(false)
     }
 
     /// An energy per mole in kJ/mol (plain numbers are kJ/mol).
