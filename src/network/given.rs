@@ -258,86 +258,106 @@ impl Network {
             message,
         };
         for s in &mut self.species {
-            let c = s.initial_spec.at(t);
-            if c > limits::MAX_AMOUNT {
-                return Err(fail(
-                    &s.initial_origin,
-                    format!(
-                        "{c:e} mol/L is above {:e} mol/L, denser than any substance (common practice)",
-                        limits::MAX_AMOUNT
-                    ),
-                ));
-            }
-            if c > 0.0 && c < limits::MIN_AMOUNT {
-                return Err(fail(
-                    &s.initial_origin,
-                    format!(
-                        "{c:e} mol/L is below {:e} mol/L, less than one molecule in a cubic kilometre: write 0",
-                        limits::MIN_AMOUNT
-                    ),
-                ));
-            }
-            s.initial = c;
+            evaluate_amount(s, t, &fail)?;
         }
         for r in &mut self.reactions {
-            let rate = |spec: &RateGiven, origin: &Origin| -> Result<f64, InputError> {
-                let k = spec.at(t);
-                if !k.is_finite() || k > limits::MAX_RATE_CONSTANT || (k > 0.0 && k < limits::MIN_CONSTANT) {
-                    return Err(fail(
-                        origin,
-                        format!(
-                            "evaluates to {} at {t} K, outside {:e} to {:e} (common practice; mol/L and s)",
-                            crate::format::finite_or_word(k),
-                            limits::MIN_CONSTANT,
-                            limits::MAX_RATE_CONSTANT
-                        ),
-                    ));
-                }
-                Ok(k)
-            };
-            r.kf = rate(&r.kf_spec, &r.kf_origin)?;
-            let kc = match &r.k_spec {
-                Some(k) => {
-                    let kc = k.kc_at(t).map_err(|m| fail(&k.origin, m))?;
-                    if !(limits::MIN_CONSTANT..=limits::MAX_EQUILIBRIUM_CONSTANT).contains(&kc) {
-                        return Err(fail(
-                            &k.origin,
-                            format!(
-                                "evaluates to Kc = {} at {t} K, outside {:e} to {:e}: the step is one-way in practice; write it with `=>`",
-                                crate::format::finite_or_word(kc),
-                                limits::MIN_CONSTANT,
-                                limits::MAX_EQUILIBRIUM_CONSTANT
-                            ),
-                        ));
-                    }
-                    Some(kc)
-                }
-                None => None,
-            };
-            r.kr = match (&r.kr_spec, kc, &r.k_spec) {
-                (Some(spec), _, _) => rate(spec, &r.kr_origin)?,
-                (None, Some(kc), Some(k)) if r.reversible => {
-                    let kr = r.kf / kc;
-                    if kr > limits::MAX_RATE_CONSTANT || (kr > 0.0 && kr < limits::MIN_CONSTANT) {
-                        return Err(fail(
-                            &k.origin,
-                            format!(
-                                "makes kr = kf/K = {kr:e}, outside {:e} to {:e} (common practice)",
-                                limits::MIN_CONSTANT,
-                                limits::MAX_RATE_CONSTANT
-                            ),
-                        ));
-                    }
-                    kr
-                }
-                _ => 0.0,
-            };
-            r.k_given = kc;
-            r.k_source = r.k_spec.as_ref().map(KGiven::source);
-            r.enthalpy = r.k_spec.as_ref().and_then(KGiven::enthalpy);
-            r.kf_arrhenius = r.kf_spec.arrhenius();
-            r.kr_arrhenius = r.kr_spec.as_ref().and_then(RateGiven::arrhenius);
+            evaluate_constants(r, t, &fail)?;
         }
         Ok(())
     }
+}
+
+/// A species' initial amount at temperature t, within the limits.
+fn evaluate_amount(
+    s: &mut super::Species,
+    t: f64,
+    fail: &impl Fn(&Origin, String) -> InputError,
+) -> Result<(), InputError> {
+    let c = s.initial_spec.at(t);
+    if c > limits::MAX_AMOUNT {
+        return Err(fail(
+            &s.initial_origin,
+            format!(
+                "{c:e} mol/L is above {:e} mol/L, denser than any substance (common practice)",
+                limits::MAX_AMOUNT
+            ),
+        ));
+    }
+    if c > 0.0 && c < limits::MIN_AMOUNT {
+        return Err(fail(
+            &s.initial_origin,
+            format!(
+                "{c:e} mol/L is below {:e} mol/L, less than one molecule in a cubic kilometre: write 0",
+                limits::MIN_AMOUNT
+            ),
+        ));
+    }
+    s.initial = c;
+    Ok(())
+}
+
+/// A step's kf, kr and K at temperature t, within the limits, and what reports say of them.
+fn evaluate_constants(
+    r: &mut super::Reaction,
+    t: f64,
+    fail: &impl Fn(&Origin, String) -> InputError,
+) -> Result<(), InputError> {
+    let rate = |spec: &RateGiven, origin: &Origin| -> Result<f64, InputError> {
+        let k = spec.at(t);
+        if !k.is_finite() || k > limits::MAX_RATE_CONSTANT || (k > 0.0 && k < limits::MIN_CONSTANT) {
+            return Err(fail(
+                origin,
+                format!(
+                    "evaluates to {} at {t} K, outside {:e} to {:e} (common practice; mol/L and s)",
+                    crate::format::finite_or_word(k),
+                    limits::MIN_CONSTANT,
+                    limits::MAX_RATE_CONSTANT
+                ),
+            ));
+        }
+        Ok(k)
+    };
+    r.kf = rate(&r.kf_spec, &r.kf_origin)?;
+    let kc = match &r.k_spec {
+        Some(k) => {
+            let kc = k.kc_at(t).map_err(|m| fail(&k.origin, m))?;
+            if !(limits::MIN_CONSTANT..=limits::MAX_EQUILIBRIUM_CONSTANT).contains(&kc) {
+                return Err(fail(
+                    &k.origin,
+                    format!(
+                        "evaluates to Kc = {} at {t} K, outside {:e} to {:e}: the step is one-way in practice; write it with `=>`",
+                        crate::format::finite_or_word(kc),
+                        limits::MIN_CONSTANT,
+                        limits::MAX_EQUILIBRIUM_CONSTANT
+                    ),
+                ));
+            }
+            Some(kc)
+        }
+        None => None,
+    };
+    r.kr = match (&r.kr_spec, kc, &r.k_spec) {
+        (Some(spec), _, _) => rate(spec, &r.kr_origin)?,
+        (None, Some(kc), Some(k)) if r.reversible => {
+            let kr = r.kf / kc;
+            if kr > limits::MAX_RATE_CONSTANT || (kr > 0.0 && kr < limits::MIN_CONSTANT) {
+                return Err(fail(
+                    &k.origin,
+                    format!(
+                        "makes kr = kf/K = {kr:e}, outside {:e} to {:e} (common practice)",
+                        limits::MIN_CONSTANT,
+                        limits::MAX_RATE_CONSTANT
+                    ),
+                ));
+            }
+            kr
+        }
+        _ => 0.0,
+    };
+    r.k_given = kc;
+    r.k_source = r.k_spec.as_ref().map(KGiven::source);
+    r.enthalpy = r.k_spec.as_ref().and_then(KGiven::enthalpy);
+    r.kf_arrhenius = r.kf_spec.arrhenius();
+    r.kr_arrhenius = r.kr_spec.as_ref().and_then(RateGiven::arrhenius);
+    Ok(())
 }

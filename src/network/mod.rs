@@ -837,13 +837,15 @@ impl<'a> Reader<'a> {
                     }
                 }
             }
-            other => return Err(self.error(
-                Some(prop_span.clone()),
-                sub,
-                format!(
+            other => {
+                return Err(self.error(
+                    Some(prop_span.clone()),
+                    sub,
+                    format!(
                     "unknown property `{other}`; expected initial, phase, atol, formula, charge, dGf or dHf"
                 ),
-            )),
+                ))
+            }
         }
         Ok(false)
     }
