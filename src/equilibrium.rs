@@ -562,27 +562,9 @@ fn maximise_dual(g: &[f64], laws: &[(Row, f64)], c0: &[f64]) -> Result<(Vec<f64>
             return Err(infeasible());
         }
         let (r, total_residual) = residual_of(&c);
-        let mut hessian = nalgebra::DMatrix::<f64>::zeros(m, m);
-        for (k, list) in laws_of.iter().enumerate() {
-            for &(a, va) in list {
-                for &(b, vb) in list {
-                    hessian[(a, b)] += va * vb * c[k];
-                }
-            }
-        }
-        let d: Vec<f64> = (0..m)
-            .map(|a| 1.0 / hessian[(a, a)].sqrt().max(f64::MIN_POSITIVE))
-            .collect();
-        let scaled = nalgebra::DMatrix::from_fn(m, m, |a, b| d[a] * hessian[(a, b)] * d[b]);
-        let rhs = nalgebra::DVector::from_fn(m, |a, _| d[a] * r[a]);
-        let Some(z) = scaled.full_piv_lu().solve(&rhs) else {
+        let Some((delta_lambda, dx)) = newton_step(&laws_of, m, &c, &r) else {
             return Err(infeasible());
         };
-        let delta_lambda: Vec<f64> = (0..m).map(|a| d[a] * z[a]).collect();
-        let dx: Vec<f64> = laws_of
-            .iter()
-            .map(|list| list.iter().map(|&(l, v)| v * delta_lambda[l]).sum())
-            .collect();
         let step = dx.iter().fold(0.0_f64, |s, v| s.max(v.abs()));
         if !step.is_finite() {
             return Err(infeasible());
@@ -639,6 +621,36 @@ fn maximise_dual(g: &[f64], laws: &[(Row, f64)], c0: &[f64]) -> Result<(Vec<f64>
         total_residual,
         last_step: previous_step,
     })
+}
+
+/// The Newton step of the dual: δλ from (L C Lᵀ) δλ = r, the Hessian scaled to unit diagonal
+/// before its LU, and Δx = Lᵀ δλ, the change of ln c it asks for. None when singular.
+fn newton_step(
+    laws_of: &[Vec<(usize, f64)>],
+    m: usize,
+    c: &[f64],
+    r: &[f64],
+) -> Option<(Vec<f64>, Vec<f64>)> {
+    let mut hessian = nalgebra::DMatrix::<f64>::zeros(m, m);
+    for (k, list) in laws_of.iter().enumerate() {
+        for &(a, va) in list {
+            for &(b, vb) in list {
+                hessian[(a, b)] += va * vb * c[k];
+            }
+        }
+    }
+    let d: Vec<f64> = (0..m)
+        .map(|a| 1.0 / hessian[(a, a)].sqrt().max(f64::MIN_POSITIVE))
+        .collect();
+    let scaled = nalgebra::DMatrix::from_fn(m, m, |a, b| d[a] * hessian[(a, b)] * d[b]);
+    let rhs = nalgebra::DVector::from_fn(m, |a, _| d[a] * r[a]);
+    let z = scaled.full_piv_lu().solve(&rhs)?;
+    let delta_lambda: Vec<f64> = (0..m).map(|a| d[a] * z[a]).collect();
+    let dx: Vec<f64> = laws_of
+        .iter()
+        .map(|list| list.iter().map(|&(l, v)| v * delta_lambda[l]).sum())
+        .collect();
+    Some((delta_lambda, dx))
 }
 
 fn infeasible() -> NoEquilibrium {
