@@ -286,8 +286,6 @@ pub fn integrate(
         states: vec![y.clone()],
         derivatives: vec![f.clone()],
     };
-    let scale =
-        |y0: &[f64], y1: &[f64], i: usize| options.atol[i] + options.rtol * y0[i].abs().max(y1[i].abs());
     let mut h = initial_step(&y, &f, options, end);
     let mut rodas = Rodas4::new(n, jac_pattern.nnz(), diagonal);
     let mut y_new = vec![0.0; n];
@@ -296,47 +294,16 @@ pub fn integrate(
     let mut rejected_last = false;
 
     let stop = loop {
-        // The requested time, while it is still ahead.
-        let until_ahead = options.until.filter(|&u| t < u);
-        if until_ahead.is_none() && (!options.to_equilibrium || equilibrium_at.is_some()) {
-            break if options.until.is_some() {
-                StopReason::ReachedTime
-            } else {
-                StopReason::Equilibrium
-            };
-        }
-        if t >= max_time {
-            // At the horizon every mode has decayed (the caller sets it to many slowest
-            // relaxation times): a state within the rounding floor of the solved equilibrium
-            // has reached it, however slowly the last tolerances were approached.
-            let at_floor = options
-                .target
-                .as_ref()
-                .is_some_and(|c| (0..n).all(|i| (y[i] - c[i]).abs() <= HORIZON_BAND * scale(c, c, i)));
-            if options.to_equilibrium && equilibrium_at.is_none() && at_floor {
+        match next_move(options, &stats, started, &y, t, max_time, equilibrium_at) {
+            Move::Stop(reason) => break reason,
+            Move::AtHorizon => {
                 equilibrium_at = Some(t);
                 continue;
             }
-            break if options.until.is_some() {
-                StopReason::ReachedTime
-            } else {
-                StopReason::MaxTime
-            };
+            Move::Step => {}
         }
-        let target = until_ahead.unwrap_or(max_time);
-        if stats.steps >= options.max_steps {
-            break StopReason::MaxSteps;
-        }
-        if options
-            .max_seconds
-            .is_some_and(|budget| started.elapsed().as_secs_f64() > budget)
-        {
-            break StopReason::TimeBudget;
-        }
-        // Rejections count against the budget too, so that no input can loop for ever.
-        if stats.rejected_steps >= options.max_steps {
-            break StopReason::MaxSteps;
-        }
+        // The requested time while it is still ahead, else the horizon.
+        let target = options.until.filter(|&u| t < u).unwrap_or(max_time);
         h = h.min(target - t);
         if h <= 1e-14 * t.max(1e-300) || !h.is_finite() {
             return Err(IntegrationError { time: t, step: h });
@@ -349,16 +316,7 @@ pub fn integrate(
             rejected_last = true;
             continue;
         }
-        let u = &rodas.u;
-        let err = u[5]
-            .iter()
-            .enumerate()
-            .map(|(i, e)| (e / scale(&y, &y_new, i)).powi(2))
-            .sum::<f64>();
-        let err = (err / n as f64).sqrt();
-        let negative = (0..n)
-            .map(|i| y_new[i] / scale(&y, &y_new, i))
-            .fold(0.0_f64, f64::min);
+        let (err, negative) = error_norm(&rodas.u[5], &y, &y_new, options);
         if !err.is_finite() || negative < -1.0 {
             if err <= 1.0 && negative < -1.0 {
                 stats.negative_rejections += 1;
@@ -424,6 +382,78 @@ pub fn integrate(
         equilibrium_at,
         worst_negative,
     })
+}
+
+/// What the integration does next.
+enum Move {
+    Stop(StopReason),
+    /// At the horizon, within the rounding floor of the solved equilibrium: reached.
+    AtHorizon,
+    Step,
+}
+
+/// Whether to stop before the next step: the requested time and equilibrium reached, the
+/// horizon, the step budget (rejections count too, so no input loops for ever) or the
+/// wall-clock budget.
+fn next_move(
+    options: &Options,
+    stats: &Stats,
+    started: Instant,
+    y: &[f64],
+    t: f64,
+    max_time: f64,
+    equilibrium_at: Option<f64>,
+) -> Move {
+    let until_ahead = options.until.filter(|&u| t < u);
+    let when_done = |otherwise: StopReason| {
+        if options.until.is_some() {
+            StopReason::ReachedTime
+        } else {
+            otherwise
+        }
+    };
+    if until_ahead.is_none() && (!options.to_equilibrium || equilibrium_at.is_some()) {
+        return Move::Stop(when_done(StopReason::Equilibrium));
+    }
+    if t >= max_time {
+        // At the horizon every mode has decayed (the caller sets it to many slowest relaxation
+        // times): a state within the rounding floor of the solved equilibrium has reached it,
+        // however slowly the last tolerances were approached.
+        let scale = |c: &[f64], i: usize| options.atol[i] + options.rtol * c[i].abs();
+        let at_floor = options
+            .target
+            .as_ref()
+            .is_some_and(|c| (0..y.len()).all(|i| (y[i] - c[i]).abs() <= HORIZON_BAND * scale(c, i)));
+        if options.to_equilibrium && equilibrium_at.is_none() && at_floor {
+            return Move::AtHorizon;
+        }
+        return Move::Stop(when_done(StopReason::MaxTime));
+    }
+    if stats.steps >= options.max_steps || stats.rejected_steps >= options.max_steps {
+        return Move::Stop(StopReason::MaxSteps);
+    }
+    if options
+        .max_seconds
+        .is_some_and(|budget| started.elapsed().as_secs_f64() > budget)
+    {
+        return Move::Stop(StopReason::TimeBudget);
+    }
+    Move::Step
+}
+
+/// The weighted RMS norm of the error estimate, and the most negative new concentration in
+/// units of its tolerance.
+fn error_norm(estimate: &[f64], y: &[f64], y_new: &[f64], options: &Options) -> (f64, f64) {
+    let n = y.len();
+    let scale = |i: usize| options.atol[i] + options.rtol * y[i].abs().max(y_new[i].abs());
+    let err = estimate
+        .iter()
+        .enumerate()
+        .map(|(i, e)| (e / scale(i)).powi(2))
+        .sum::<f64>();
+    let err = (err / n as f64).sqrt();
+    let negative = (0..n).map(|i| y_new[i] / scale(i)).fold(0.0_f64, f64::min);
+    (err, negative)
 }
 
 /// The workspace of RODAS4 steps, allocated once per integration.
