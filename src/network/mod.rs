@@ -280,6 +280,17 @@ impl Network {
 }
 
 /// Walks the spanned TOML tree so that every message can name a line.
+/// Rate-law orders of one direction: (species index, order).
+type Orders = Vec<(usize, f64)>;
+
+/// A step's rate constants as given, with where they were written.
+struct RateSpecs {
+    kf_spec: RateGiven,
+    kf_origin: Origin,
+    kr_spec: Option<RateGiven>,
+    kr_origin: Origin,
+}
+
 /// A step's equation, parsed and resolved against the species.
 struct ResolvedEquation {
     text: String,
@@ -507,55 +518,14 @@ impl<'a> Reader<'a> {
             products,
         } = self.resolved_equation(table, item, field, species)?;
 
-        let forward_orders = self.orders(
-            table.get("orders"),
-            &format!("{field}.orders"),
-            &reactants,
-            species,
-        )?;
-        let reverse_orders = if reversible {
-            self.orders(
-                table.get("reverse_orders"),
-                &format!("{field}.reverse_orders"),
-                &products,
-                species,
-            )?
-        } else {
-            if let Some(v) = table.get("reverse_orders") {
-                return Err(self.error(
-                    Some(v.span()),
-                    &format!("{field}.reverse_orders"),
-                    "a one-way step has no reverse rate",
-                ));
-            }
-            Vec::new()
-        };
-        let sum = |o: &[(usize, f64)]| o.iter().map(|e| e.1).sum::<f64>();
-        let (forward_order, reverse_order) = (sum(&forward_orders), sum(&reverse_orders));
-        let kf_field = format!("{field}.kf");
-        let Some(kf_value) = table.get("kf") else {
-            return Err(self.error(
-                Some(item.span()),
-                &kf_field,
-                "missing: every reaction needs a forward rate constant kf",
-            ));
-        };
-        let origin = |v: &Value<'_>, field: String| Origin {
-            line: Some(self.line_of(v.span().start)),
-            field,
-        };
-        let kf_spec = self.rate_constant(kf_value, &kf_field, forward_order)?;
-        let kf_origin = origin(kf_value, kf_field.clone());
-        let (kr_spec, kr_origin) = match table.get("kr") {
-            Some(v) => {
-                let kr_field = format!("{field}.kr");
-                (
-                    Some(self.rate_constant(v, &kr_field, reverse_order)?),
-                    origin(v, kr_field),
-                )
-            }
-            None => (None, Origin::default()),
-        };
+        let (forward_orders, reverse_orders) =
+            self.rate_orders(table, field, reversible, &reactants, &products, species)?;
+        let RateSpecs {
+            kf_spec,
+            kf_origin,
+            kr_spec,
+            kr_origin,
+        } = self.rate_specs(table, item, field, &forward_orders, &reverse_orders)?;
         let k_spec = self.equilibrium_spec(table, field, species, &reactants, &products)?;
         if reversible {
             if kr_spec.is_none() && k_spec.is_none() {
@@ -600,6 +570,86 @@ impl<'a> Reader<'a> {
             gibbs,
             forward_orders,
             reverse_orders,
+        })
+    }
+
+    /// The forward and reverse rate-law orders of a step (the coefficients unless `orders` or
+    /// `reverse_orders` say otherwise).
+    fn rate_orders(
+        &self,
+        table: &DeTable<'_>,
+        field: &str,
+        reversible: bool,
+        reactants: &[(usize, f64)],
+        products: &[(usize, f64)],
+        species: &[Species],
+    ) -> Result<(Orders, Orders), InputError> {
+        let forward_orders = self.orders(
+            table.get("orders"),
+            &format!("{field}.orders"),
+            reactants,
+            species,
+        )?;
+        let reverse_orders = if reversible {
+            self.orders(
+                table.get("reverse_orders"),
+                &format!("{field}.reverse_orders"),
+                products,
+                species,
+            )?
+        } else {
+            if let Some(v) = table.get("reverse_orders") {
+                return Err(self.error(
+                    Some(v.span()),
+                    &format!("{field}.reverse_orders"),
+                    "a one-way step has no reverse rate",
+                ));
+            }
+            Vec::new()
+        };
+        Ok((forward_orders, reverse_orders))
+    }
+
+    /// kf and kr as given, checked against the units their orders imply.
+    fn rate_specs(
+        &self,
+        table: &DeTable<'_>,
+        item: &Value<'_>,
+        field: &str,
+        forward_orders: &[(usize, f64)],
+        reverse_orders: &[(usize, f64)],
+    ) -> Result<RateSpecs, InputError> {
+        let sum = |o: &[(usize, f64)]| o.iter().map(|e| e.1).sum::<f64>();
+        let (forward_order, reverse_order) = (sum(forward_orders), sum(reverse_orders));
+        let kf_field = format!("{field}.kf");
+        let Some(kf_value) = table.get("kf") else {
+            return Err(self.error(
+                Some(item.span()),
+                &kf_field,
+                "missing: every reaction needs a forward rate constant kf",
+            ));
+        };
+        let origin = |v: &Value<'_>, field: String| Origin {
+            line: Some(self.line_of(v.span().start)),
+            field,
+        };
+        let kf_spec = self.rate_constant(kf_value, &kf_field, forward_order)?;
+        let kf_origin = origin(kf_value, kf_field.clone());
+        let (kr_spec, kr_origin) = match table.get("kr") {
+            Some(v) => {
+                let kr_field = format!("{field}.kr");
+                (
+                    Some(self.rate_constant(v, &kr_field, reverse_order)?),
+                    origin(v, kr_field),
+                )
+            }
+            None => (None, Origin::default()),
+        };
+        Ok(RateSpecs {
+            kf_spec,
+            kf_origin,
+            kr_spec,
+            kr_origin,
         })
     }
 
