@@ -34,20 +34,13 @@ pub struct Share {
     pub share: f64,
 }
 
-/// Modes slowest first, at the equilibrium `c_eq`; an explanation when the analysis does not
-/// apply.
-pub fn modes(network: &Network, c_eq: &[f64]) -> Result<Vec<Mode>, String> {
-    let positive: Vec<usize> = (0..network.n_species())
-        .filter(|&i| network.species[i].in_rate_laws() && c_eq[i] > 0.0)
-        .collect();
-    if positive.len() > MAX_SPECIES {
-        return Err(format!("relaxation analysis is limited to {MAX_SPECIES} species"));
-    }
-    let mut column_of = vec![usize::MAX; network.n_species()];
-    for (k, &i) in positive.iter().enumerate() {
-        column_of[i] = k;
-    }
-    // Steps that are active at equilibrium, with their equilibrium rate.
+/// A step active at equilibrium: its equation, equilibrium rate and net change over the
+/// positive species.
+type ActiveStep = (String, f64, Vec<(usize, f64)>);
+
+/// The steps active at equilibrium: (equation, equilibrium rate, net change over the positive
+/// species). Fails when a step runs one way only (no equilibrium to relax to).
+fn active_steps(network: &Network, c_eq: &[f64], column_of: &[usize]) -> Result<Vec<ActiveStep>, String> {
     let mut steps = Vec::new();
     for r in &network.reactions {
         if !r.runs_both_ways() {
@@ -76,6 +69,23 @@ pub fn modes(network: &Network, c_eq: &[f64]) -> Result<Vec<Mode>, String> {
             .collect();
         steps.push((r.equation.clone(), rate, column));
     }
+    Ok(steps)
+}
+
+/// Modes slowest first, at the equilibrium `c_eq`; an explanation when the analysis does not
+/// apply.
+pub fn modes(network: &Network, c_eq: &[f64]) -> Result<Vec<Mode>, String> {
+    let positive: Vec<usize> = (0..network.n_species())
+        .filter(|&i| network.species[i].in_rate_laws() && c_eq[i] > 0.0)
+        .collect();
+    if positive.len() > MAX_SPECIES {
+        return Err(format!("relaxation analysis is limited to {MAX_SPECIES} species"));
+    }
+    let mut column_of = vec![usize::MAX; network.n_species()];
+    for (k, &i) in positive.iter().enumerate() {
+        column_of[i] = k;
+    }
+    let steps = active_steps(network, c_eq, &column_of)?;
     let n = positive.len();
     let mut echelon = Echelon::new(n);
     for (_, _, column) in &steps {
