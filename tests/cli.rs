@@ -1,20 +1,6 @@
 //! The binary as a user meets it: exit codes, messages and the files a run writes.
 
-use std::path::Path;
-use std::process::{Command, Output};
-
-fn kinequil(args: &[&str]) -> Output {
-    Command::new(env!("CARGO_BIN_EXE_kinequil"))
-        .args(args)
-        .output()
-        .expect("binary runs")
-}
-
-fn write_case(dir: &Path, name: &str, text: &str) -> String {
-    let path = dir.join(name);
-    std::fs::write(&path, text).unwrap();
-    path.to_string_lossy().into_owned()
-}
+use crate::util::{kinequil, write_case};
 
 const GOOD: &str =
     "[species]\nA = 1.0\nB = 0.0\n\n[[reaction]]\nequation = \"A <=> B\"\nkf = 2.0\nkr = 1.0\n";

@@ -4,23 +4,12 @@
 //! `network::limits`.
 
 use std::path::Path;
-use std::process::{Command, Output, Stdio};
+use std::process::{Command, Stdio};
 use std::time::Duration;
 
 use kinequil::network::Network;
 
-fn kinequil(args: &[&str]) -> Output {
-    Command::new(env!("CARGO_BIN_EXE_kinequil"))
-        .args(args)
-        .output()
-        .expect("binary runs")
-}
-
-fn write_case(dir: &Path, name: &str, text: &str) -> String {
-    let path = dir.join(name);
-    std::fs::write(&path, text).unwrap();
-    path.to_string_lossy().into_owned()
-}
+use crate::util::{kinequil, write_case};
 
 fn one_step(species: &str, step: &str) -> String {
     format!("[species]\n{species}\n\n[[reaction]]\n{step}\n")

@@ -1,6 +1,7 @@
 //! Helpers shared by the integration tests.
 
 use std::path::Path;
+use std::process::{Command, Output};
 
 use kinequil::network::Network;
 use kinequil::run::{run, RunResult, RunSettings};
@@ -38,4 +39,19 @@ impl SplitMix {
         z ^= z >> 31;
         (z >> 11) as f64 / (1u64 << 53) as f64
     }
+}
+
+/// Runs the binary with these arguments.
+pub fn kinequil(args: &[&str]) -> Output {
+    Command::new(env!("CARGO_BIN_EXE_kinequil"))
+        .args(args)
+        .output()
+        .expect("binary runs")
+}
+
+/// Writes a network file into `dir` and returns its path as a string.
+pub fn write_case(dir: &Path, name: &str, text: &str) -> String {
+    let path = dir.join(name);
+    std::fs::write(&path, text).unwrap();
+    path.to_string_lossy().into_owned()
 }
