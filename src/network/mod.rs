@@ -1014,7 +1014,49 @@ impl<'a> Reader<'a> {
         })
     }
 
-    /// K (Kc, concentration-based) or Kp, in any of its forms, evaluated as Kc at temperature t.
+    /// The "native" value of K or Kp: Kc for K, the standard (1 bar) Kp° for Kp; a string
+    /// carries units that must fit the step (concentration^Δn, or pressure^Δn_gas).
+    fn k_native(
+        &self,
+        v: &Value<'_>,
+        sub: &str,
+        is_kp: bool,
+        delta_n: f64,
+        delta_n_gas: f64,
+    ) -> Result<f64, InputError> {
+        let x = match v.get_ref() {
+            DeValue::String(text) => {
+                let q = parse_quantity(text).map_err(|m| self.error(Some(v.span()), sub, m))?;
+                let expected = if is_kp {
+                    Dimension::PRESSURE.power(delta_n_gas)
+                } else {
+                    Dimension::concentration().power(delta_n)
+                };
+                if !q.dimension.same(expected) {
+                    return Err(self.error(
+                        Some(v.span()),
+                        sub,
+                        format!(
+                            "`{text}` has units of {}, expected {expected} for this step",
+                            q.dimension
+                        ),
+                    ));
+                }
+                if is_kp {
+                    q.value / STANDARD_PRESSURE.powf(delta_n_gas)
+                } else {
+                    q.value
+                }
+            }
+            _ => self.number(v, sub)?,
+        };
+        if x <= 0.0 {
+            return Err(self.error(Some(v.span()), sub, "must be positive"));
+        }
+        Ok(x)
+    }
+
+    /// K (Kc, concentration-based) or Kp, in any of its forms, kept as given.
     fn equilibrium_constant(
         &self,
         value: &Value<'_>,
@@ -1033,39 +1075,7 @@ impl<'a> Reader<'a> {
             },
         };
         let name = if is_kp { "Kp" } else { "K" };
-        // The "native" value: Kc for K, the standard (1 bar) Kp° for Kp.
-        let native = |v: &Value<'_>, sub: &str| -> Result<f64, InputError> {
-            let x = match v.get_ref() {
-                DeValue::String(text) => {
-                    let q = parse_quantity(text).map_err(|m| self.error(Some(v.span()), sub, m))?;
-                    let expected = if is_kp {
-                        Dimension::PRESSURE.power(delta_n_gas)
-                    } else {
-                        Dimension::concentration().power(delta_n)
-                    };
-                    if !q.dimension.same(expected) {
-                        return Err(self.error(
-                            Some(v.span()),
-                            sub,
-                            format!(
-                                "`{text}` has units of {}, expected {expected} for this step",
-                                q.dimension
-                            ),
-                        ));
-                    }
-                    if is_kp {
-                        q.value / STANDARD_PRESSURE.powf(delta_n_gas)
-                    } else {
-                        q.value
-                    }
-                }
-                _ => self.number(v, sub)?,
-            };
-            if x <= 0.0 {
-                return Err(self.error(Some(v.span()), sub, "must be positive"));
-            }
-            Ok(x)
-        };
+        let native = |v: &Value<'_>, sub: &str| self.k_native(v, sub, is_kp, delta_n, delta_n_gas);
         let DeValue::Table(parts) = value.get_ref() else {
             return Ok(given(KForm::Value(native(value, field)?)));
         };
