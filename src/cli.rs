@@ -244,7 +244,9 @@ fn run_command(args: RunArgs) -> Result<String, Error> {
     let out = args
         .out
         .unwrap_or_else(|| PathBuf::from("output").join(network.case_name()));
-    // Refuse before the work, not after it, when earlier results are in the way.
+    // Refuse before the work, not after it, when earlier results are in the way (after putting
+    // back a run that an interrupted one had set aside).
+    report::recover_interrupted(&out);
     if !args.force {
         report::refuse_existing(&out, report::RUN_FILES)?;
     }

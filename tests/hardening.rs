@@ -267,3 +267,36 @@ fn the_time_budget_ends_a_run_cleanly() {
     assert!(String::from_utf8_lossy(&run.stdout).contains("--max-seconds"));
     assert!(out.join("summary.json").exists());
 }
+
+#[test]
+fn leftovers_of_a_killed_swap_are_put_right() {
+    // A run killed between setting the earlier run aside and renaming the new one in leaves
+    // `.run.kinequil-old-PID` and perhaps `.run.kinequil-new-PID` beside a missing `run`. The next
+    // run puts the earlier results back (and so refuses without --force) and removes the
+    // half-built folder. PID 4194303 stands for a process that is gone.
+    let dir = tempfile::tempdir().unwrap();
+    let case = write_case(
+        dir.path(),
+        "ok.toml",
+        "[species]\nA = 1.0\nB = 0.0\n\n[[reaction]]\nequation = \"A <=> B\"\nkf = 2.0\nkr = 1.0\n",
+    );
+    let aside = dir.path().join(".run.kinequil-old-4194303");
+    let half = dir.path().join(".run.kinequil-new-4194303");
+    std::fs::create_dir(&aside).unwrap();
+    std::fs::write(aside.join("summary.json"), "{\"earlier\": true}").unwrap();
+    std::fs::create_dir(&half).unwrap();
+    std::fs::write(half.join("summary.json"), "{\"half\"").unwrap();
+    let out = dir.path().join("run");
+    let refused = kinequil(&["run", &case, "--out", out.to_str().unwrap()]);
+    assert_eq!(
+        refused.status.code(),
+        Some(2),
+        "{}",
+        String::from_utf8_lossy(&refused.stderr)
+    );
+    assert_eq!(
+        std::fs::read_to_string(out.join("summary.json")).unwrap(),
+        "{\"earlier\": true}"
+    );
+    assert!(!aside.exists() && !half.exists());
+}

@@ -173,6 +173,7 @@ pub fn write_all(dir: &Path, files: &[(String, Vec<u8>)], force: bool) -> Result
         path: path.to_path_buf(),
         source: e,
     };
+    recover_interrupted(dir);
     let exists = dir.exists();
     if exists {
         if !force {
@@ -228,6 +229,44 @@ pub fn write_all(dir: &Path, files: &[(String, Vec<u8>)], force: bool) -> Result
         let _ = fs::remove_dir_all(&aside);
     }
     Ok(files.iter().map(|(file, _)| dir.join(file)).collect())
+}
+
+/// Undoes what a run killed while swapping its folder in left beside `dir`: an earlier run set
+/// aside is put back when `dir` is missing (else removed), and half-built folders are removed.
+/// Only leftovers of processes that are gone are touched (where /proc tells; elsewhere none).
+pub fn recover_interrupted(dir: &Path) {
+    let Some(name) = dir.file_name().map(|n| n.to_string_lossy().into_owned()) else {
+        return;
+    };
+    let parent = dir
+        .parent()
+        .filter(|p| !p.as_os_str().is_empty())
+        .unwrap_or(Path::new("."));
+    let Ok(entries) = fs::read_dir(parent) else {
+        return;
+    };
+    let gone = |pid: u32| {
+        let proc_fs = Path::new("/proc/self").exists();
+        proc_fs && pid != std::process::id() && !Path::new(&format!("/proc/{pid}")).exists()
+    };
+    for entry in entries.filter_map(|e| e.ok()) {
+        let file = entry.file_name().to_string_lossy().into_owned();
+        for (kind, restore) in [("old", true), ("new", false)] {
+            let prefix = format!(".{name}.kinequil-{kind}-");
+            let Some(pid) = file.strip_prefix(&prefix).and_then(|p| p.parse::<u32>().ok()) else {
+                continue;
+            };
+            if !gone(pid) {
+                continue;
+            }
+            let path = entry.path();
+            if restore && !dir.exists() {
+                let _ = fs::rename(&path, dir);
+            } else {
+                let _ = fs::remove_dir_all(&path);
+            }
+        }
+    }
 }
 
 /// Refuses to replace a folder that holds anything but kinequil's own run files.
