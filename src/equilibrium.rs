@@ -596,19 +596,9 @@ fn maximise_dual(g: &[f64], laws: &[(Row, f64)], c0: &[f64]) -> Result<(Vec<f64>
                 Err(not_converged())
             };
         }
-        // Backtracking (Armijo) on φ; ln c moves by at most 5 per step (exp is steep).
-        let mut t = (5.0 / step).min(1.0);
-        loop {
-            let curvature: f64 = c.iter().zip(&dx).map(|(c, d)| c * exp_remainder(t * d)).sum();
-            let gain = t * slope - curvature;
-            if gain >= 1e-4 * t * slope {
-                break;
-            }
-            t *= 0.5;
-            if t < 1e-10 {
-                return Err(not_converged());
-            }
-        }
+        let Some(t) = line_search(&c, &dx, slope, step) else {
+            return Err(not_converged());
+        };
         x.iter_mut().zip(&dx).for_each(|(x, d)| *x += t * d);
         if x.iter().any(|v| *v > 700.0) {
             return Err(infeasible());
@@ -655,6 +645,23 @@ fn newton_step(
 
 fn infeasible() -> NoEquilibrium {
     NoEquilibrium::Infeasible("the conservation totals cannot be met with positive concentrations".into())
+}
+
+/// Backtracking (Armijo) on φ along Δx, from the full step or the one that moves ln c by 5
+/// (exp is steep); the gain t·slope − Σ c (e^(tΔ) − 1 − tΔ) is evaluated without cancellation.
+/// None when no step of at least 1e-10 gains.
+fn line_search(c: &[f64], dx: &[f64], slope: f64, step: f64) -> Option<f64> {
+    let mut t = (5.0 / step).min(1.0);
+    loop {
+        let curvature: f64 = c.iter().zip(dx).map(|(c, d)| c * exp_remainder(t * d)).sum();
+        if t * slope - curvature >= 1e-4 * t * slope {
+            return Some(t);
+        }
+        t *= 0.5;
+        if t < 1e-10 {
+            return None;
+        }
+    }
 }
 
 /// e^u − 1 − u without cancellation for small u.
