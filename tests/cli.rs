@@ -1,9 +1,8 @@
 //! The binary as a user meets it: exit codes, messages and the files a run writes.
 
-use crate::util::{kinequil, write_case};
+use crate::util::{kinequil, write_case, ISOMERISATION};
 
-const GOOD: &str =
-    "[species]\nA = 1.0\nB = 0.0\n\n[[reaction]]\nequation = \"A <=> B\"\nkf = 2.0\nkr = 1.0\n";
+const GOOD: &str = ISOMERISATION;
 
 #[test]
 fn bad_input_exits_2_naming_file_line_and_field() {

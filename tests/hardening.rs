@@ -9,7 +9,7 @@ use std::time::Duration;
 
 use kinequil::network::Network;
 
-use crate::util::{kinequil, write_case};
+use crate::util::{kinequil, write_case, ISOMERISATION};
 
 fn one_step(species: &str, step: &str) -> String {
     format!("[species]\n{species}\n\n[[reaction]]\n{step}\n")
@@ -127,11 +127,7 @@ fn twenty_thousand_spectators_answer_at_once() {
 #[test]
 fn force_replaces_the_whole_folder_and_foreign_folders_are_refused() {
     let dir = tempfile::tempdir().unwrap();
-    let case = write_case(
-        dir.path(),
-        "ok.toml",
-        "[species]\nA = 1.0\nB = 0.0\n\n[[reaction]]\nequation = \"A <=> B\"\nkf = 2.0\nkr = 1.0\n",
-    );
+    let case = write_case(dir.path(), "ok.toml", ISOMERISATION);
     let out = dir.path().join("run");
     let out_s = out.to_str().unwrap();
     assert!(kinequil(&["run", &case, "--out", out_s, "--times", "0,1"])
@@ -221,11 +217,7 @@ fn a_run_killed_midway_leaves_one_whole_run() {
 #[test]
 fn summary_rows_keep_their_columns() {
     let dir = tempfile::tempdir().unwrap();
-    let case = write_case(
-        dir.path(),
-        "ok.toml",
-        "[species]\nA = 1.0\nB = 0.0\n\n[[reaction]]\nequation = \"A <=> B\"\nkf = 2.0\nkr = 1.0\n",
-    );
+    let case = write_case(dir.path(), "ok.toml", ISOMERISATION);
     let header = |extra: &[&str], name: &str| {
         let out = dir.path().join(name);
         let mut args = vec!["run", &case, "--out", out.to_str().unwrap()];
@@ -275,11 +267,7 @@ fn leftovers_of_a_killed_swap_are_put_right() {
     // run puts the earlier results back (and so refuses without --force) and removes the
     // half-built folder. PID 4194303 stands for a process that is gone.
     let dir = tempfile::tempdir().unwrap();
-    let case = write_case(
-        dir.path(),
-        "ok.toml",
-        "[species]\nA = 1.0\nB = 0.0\n\n[[reaction]]\nequation = \"A <=> B\"\nkf = 2.0\nkr = 1.0\n",
-    );
+    let case = write_case(dir.path(), "ok.toml", ISOMERISATION);
     let aside = dir.path().join(".run.kinequil-old-4194303");
     let half = dir.path().join(".run.kinequil-new-4194303");
     std::fs::create_dir(&aside).unwrap();

@@ -51,6 +51,13 @@ fn permutations(n: usize) -> Vec<Vec<usize>> {
     out
 }
 
+/// For a step X + Y <=> Z with K from totals x ≤ y of X and Y (Z = 0 otherwise), the
+/// leftover [X] solves K x̂² + (K(y − x) + 1) x̂ − x = 0, taken in the form without cancellation.
+fn leftover(k: f64, small: f64, large: f64) -> f64 {
+    let p = k * (large - small) + 1.0;
+    2.0 * small / (p + (p * p + 4.0 * k * small).sqrt())
+}
+
 /// Decades from 1e-6 to 1e6.
 fn decades() -> impl Iterator<Item = f64> {
     (-6..=6).map(|e| 10f64.powi(e))
@@ -78,8 +85,7 @@ fn association_scan_in_every_species_order() {
             // Amounts at most 1 mol/L (the reader refuses above 1e4), ratio b/a = r.
             let (a, b) = (1f64.min(1.0 / r), r.min(1.0));
             let (small, large) = if a <= b { (a, b) } else { (b, a) };
-            let p = k * (large - small) + 1.0;
-            let y = 2.0 * small / (p + (p * p + 4.0 * k * small).sqrt());
+            let y = leftover(k, small, large);
             let other = large - small + y;
             let c = k * y * other;
             let (ca, cb) = if a <= b { (y, other) } else { (other, y) };
@@ -120,8 +126,8 @@ fn dissociation_scan_in_every_species_order() {
         for r in decades() {
             let (b, c) = (1f64.min(1.0 / r), r.min(1.0));
             let (small, large) = if b <= c { (b, c) } else { (c, b) };
-            let p = large - small + k;
-            let y = 2.0 * k * small / (p + (p * p + 4.0 * k * small).sqrt());
+            // The reverse of an association with constant 1/K.
+            let y = leftover(1.0 / k, small, large);
             let other = large - small + y;
             let ca = y * other / k;
             let (cb, cc) = if b <= c { (y, other) } else { (other, y) };
@@ -150,8 +156,7 @@ fn single_association_step_converges_in_every_order_and_start() {
         for &(a0, b0, e0) in &starts {
             let (a, e) = (a0 + b0, e0 + b0);
             let (small, large) = if a <= e { (a, e) } else { (e, a) };
-            let p = k * (large - small) + 1.0;
-            let y = 2.0 * small / (p + (p * p + 4.0 * k * small).sqrt());
+            let y = leftover(k, small, large);
             let other = large - small + y;
             let cb = k * y * other;
             let (ca, ce) = if a <= e { (y, other) } else { (other, y) };

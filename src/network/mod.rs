@@ -1024,31 +1024,17 @@ impl<'a> Reader<'a> {
         delta_n: f64,
         delta_n_gas: f64,
     ) -> Result<f64, InputError> {
-        let x = match v.get_ref() {
-            DeValue::String(text) => {
-                let q = parse_quantity(text).map_err(|m| self.error(Some(v.span()), sub, m))?;
-                let expected = if is_kp {
-                    Dimension::PRESSURE.power(delta_n_gas)
-                } else {
-                    Dimension::concentration().power(delta_n)
-                };
-                if !q.dimension.same(expected) {
-                    return Err(self.error(
-                        Some(v.span()),
-                        sub,
-                        format!(
-                            "`{text}` has units of {}, expected {expected} for this step",
-                            q.dimension
-                        ),
-                    ));
-                }
-                if is_kp {
-                    q.value / STANDARD_PRESSURE.powf(delta_n_gas)
-                } else {
-                    q.value
-                }
-            }
-            _ => self.number(v, sub)?,
+        let expected = if is_kp {
+            Dimension::PRESSURE.power(delta_n_gas)
+        } else {
+            Dimension::concentration().power(delta_n)
+        };
+        let x = self.quantity(v, sub, expected, 1.0)?;
+        // Kp with units is in Pa^Δn here; the standard Kp° is relative to 1 bar.
+        let x = if is_kp && matches!(v.get_ref(), DeValue::String(_)) {
+            x / STANDARD_PRESSURE.powf(delta_n_gas)
+        } else {
+            x
         };
         if x <= 0.0 {
             return Err(self.error(Some(v.span()), sub, "must be positive"));
