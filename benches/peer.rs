@@ -10,10 +10,10 @@
 use std::path::{Path, PathBuf};
 use std::time::Instant;
 
-use kinequil::integrate::{integrate, Options};
-use kinequil::kinetics::RateModel;
-use kinequil::network::{Network, NetworkBuilder};
-use kinequil::stoich::Stoichiometry;
+use kinequil::RateModel;
+use kinequil::Stoichiometry;
+use kinequil::{integrate, IntegrationOptions as Options};
+use kinequil::{Network, NetworkBuilder};
 
 fn nets_dir() -> PathBuf {
     Path::new(env!("CARGO_MANIFEST_DIR")).join("../shared/bench/nets")

@@ -20,13 +20,13 @@ use crate::units::{parse_quantity, ConcentrationUnit, Dimension, TimeUnit};
     version,
     about = "Reversible reaction networks in closed batches: time to equilibrium, composition, tables and charts"
 )]
-pub struct Cli {
+struct Cli {
     #[command(subcommand)]
     pub command: Command,
 }
 
 #[derive(Debug, Subcommand)]
-pub enum Command {
+enum Command {
     /// Integrate a network to equilibrium (or to --until) and write summary, table and chart.
     Run(RunArgs),
     /// Solve the equilibrium composition directly, without integrating: composition, extent of
@@ -39,7 +39,7 @@ pub enum Command {
 }
 
 #[derive(Debug, clap::Args)]
-pub struct CheckArgs {
+struct CheckArgs {
     /// The network file (TOML).
     pub case: PathBuf,
     /// Print a JSON report instead of the table.
@@ -63,7 +63,7 @@ pub struct CheckArgs {
 }
 
 #[derive(Debug, clap::Args)]
-pub struct EquilibriumArgs {
+struct EquilibriumArgs {
     /// The network file (TOML).
     pub case: PathBuf,
     /// Print a JSON object instead of the table.
@@ -75,7 +75,7 @@ pub struct EquilibriumArgs {
 }
 
 #[derive(Debug, clap::Args)]
-pub struct RunArgs {
+struct RunArgs {
     /// The network file (TOML).
     pub case: PathBuf,
     /// Output folder [default: output/<case name>/].
@@ -126,7 +126,7 @@ pub struct RunArgs {
 
 /// What a successful command prints and the exit code it ends with (`check` ends with 1 when
 /// the network is inconsistent).
-pub struct Outcome {
+struct Outcome {
     pub text: String,
     pub exit_code: u8,
     /// A diagnosis for stderr (for example why no equilibrium exists), printed after `text`.
@@ -143,8 +143,27 @@ impl From<String> for Outcome {
     }
 }
 
+/// The binary's whole life: parse the arguments, run the command, map the outcome to an exit code.
+pub fn main() -> std::process::ExitCode {
+    use std::io::Write;
+    match execute(Cli::parse()) {
+        Ok(outcome) => {
+            // A closed pipe (e.g. `| head`) is not an error.
+            let _ = std::io::stdout().write_all(outcome.text.as_bytes());
+            if let Some(diagnosis) = outcome.diagnosis {
+                eprintln!("error: {diagnosis}");
+            }
+            std::process::ExitCode::from(outcome.exit_code)
+        }
+        Err(e) => {
+            eprintln!("error: {e}");
+            std::process::ExitCode::from(e.exit_code())
+        }
+    }
+}
+
 /// Runs the parsed command.
-pub fn execute(cli: Cli) -> Result<Outcome, Error> {
+fn execute(cli: Cli) -> Result<Outcome, Error> {
     match cli.command {
         Command::Run(args) => run_command(args).map(Outcome::from),
         Command::Equilibrium(args) => equilibrium_command(args),
@@ -227,6 +246,40 @@ fn positive_fraction(option: &str, x: f64) -> Result<f64, Error> {
 }
 
 fn run_command(args: RunArgs) -> Result<String, Error> {
+    let settings = run_settings(&args)?;
+    let network = Network::from_file_at(&args.case, temperature(&args.temperature)?)?;
+    let out = args
+        .out
+        .unwrap_or_else(|| PathBuf::from("output").join(network.case_name()));
+    // Refuse before the work, not after it, when earlier results are in the way (after putting
+    // back a run that an interrupted one had set aside).
+    report::recover_interrupted(&out);
+    if !args.force {
+        report::refuse_existing(&out, report::RUN_FILES)?;
+    }
+    report::refuse_foreign(&out)?;
+    let chart = ChartOptions {
+        time_axis: args.time_axis.into(),
+        species: match &args.species {
+            Some(list) => Some(species_list(&network, list)?),
+            None => None,
+        },
+    };
+    let result = run::run(&network, &settings)?;
+    let files = report::render_run(&result, &chart)?;
+    let written = report::write_all(&out, &files, args.force)?;
+    Ok(report::terminal::render(&result, &written))
+}
+
+/// The run's settings from its options, each checked with the option named.
+fn run_settings(args: &RunArgs) -> Result<RunSettings, Error> {
+    let positive_seconds = |option: &str, value: Option<f64>| match value {
+        Some(s) if !(s > 0.0 && s.is_finite()) => Err(Error::Option {
+            option: option.into(),
+            message: "must be a positive number of seconds".into(),
+        }),
+        _ => Ok(value),
+    };
     let rtol = positive_fraction("--rtol", args.rtol)?;
     if !(args.atol > 0.0 && args.atol.is_finite()) {
         return Err(Error::Option {
@@ -240,72 +293,39 @@ fn run_command(args: RunArgs) -> Result<String, Error> {
     }
     tolerances.sort_by(|a, b| b.total_cmp(a));
     tolerances.dedup();
-    let network = Network::from_file_at(&args.case, temperature(&args.temperature)?)?;
-    let out = args
-        .out
-        .unwrap_or_else(|| PathBuf::from("output").join(network.case_name()));
-    // Refuse before the work, not after it, when earlier results are in the way (after putting
-    // back a run that an interrupted one had set aside).
-    report::recover_interrupted(&out);
-    if !args.force {
-        report::refuse_existing(&out, report::RUN_FILES)?;
-    }
-    report::refuse_foreign(&out)?;
-    if args.until.is_some_and(|t| !(t > 0.0 && t.is_finite())) {
-        return Err(Error::Option {
-            option: "--until".into(),
-            message: "must be a positive number of seconds".into(),
-        });
-    }
-    if args.max_seconds.is_some_and(|s| !(s > 0.0 && s.is_finite())) {
-        return Err(Error::Option {
-            option: "--max-seconds".into(),
-            message: "must be a positive number of seconds".into(),
-        });
-    }
-    let settings = RunSettings {
-        max_seconds: args.max_seconds,
-        until: args.until,
+    let time_unit = args.time_unit.into();
+    let output_every = match &args.every {
+        Some(text) => match duration("--every", text, time_unit)? {
+            every if every > 0.0 => Some(every),
+            _ => {
+                return Err(Error::Option {
+                    option: "--every".into(),
+                    message: "must be a positive interval".into(),
+                })
+            }
+        },
+        None => None,
+    };
+    Ok(RunSettings {
+        max_seconds: positive_seconds("--max-seconds", args.max_seconds)?,
+        until: positive_seconds("--until", args.until)?,
         tolerances,
         rtol,
         atol: args.atol,
         force_dense: None,
         units: OutputUnits {
-            time: args.time_unit.into(),
+            time: time_unit,
             concentration: args.conc_unit.into(),
         },
         output_times: match &args.times {
             Some(list) => list
                 .split(',')
-                .map(|t| duration("--times", t, args.time_unit.into()))
+                .map(|t| duration("--times", t, time_unit))
                 .collect::<Result<Vec<f64>, Error>>()?,
             None => Vec::new(),
         },
-        output_every: match &args.every {
-            Some(text) => {
-                let every = duration("--every", text, args.time_unit.into())?;
-                if every <= 0.0 {
-                    return Err(Error::Option {
-                        option: "--every".into(),
-                        message: "must be a positive interval".into(),
-                    });
-                }
-                Some(every)
-            }
-            None => None,
-        },
-    };
-    let chart = ChartOptions {
-        time_axis: args.time_axis.into(),
-        species: match &args.species {
-            Some(list) => Some(species_list(&network, list)?),
-            None => None,
-        },
-    };
-    let result = run::run(&network, &settings)?;
-    let files = report::render_run(&result, &chart)?;
-    let written = report::write_all(&out, &files, args.force)?;
-    Ok(report::terminal::render(&result, &written))
+        output_every,
+    })
 }
 
 fn equilibrium_command(args: EquilibriumArgs) -> Result<Outcome, Error> {

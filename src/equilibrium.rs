@@ -529,40 +529,18 @@ fn maximise_dual(g: &[f64], laws: &[(Row, f64)], c0: &[f64]) -> Result<(Vec<f64>
     if m == 0 {
         return Ok((g.iter().map(|x| x.exp()).collect(), 0));
     }
-    // For each species, the laws it is in: the Hessian's sparsity.
-    let mut laws_of: Vec<Vec<(usize, f64)>> = vec![Vec::new(); n];
-    for (l, (row, _)) in laws.iter().enumerate() {
-        for &(k, v) in row {
-            laws_of[k].push((l, v));
-        }
-    }
-    let totals: Vec<f64> = laws.iter().map(|(_, t)| *t).collect();
-    let mut x = starting_point(g, laws, &laws_of, c0);
+    let by_species = LawsBySpecies::new(laws, n);
+    let laws_of = &by_species.of;
+    let mut x = starting_point(g, laws, laws_of, c0);
     let mut previous_step = f64::INFINITY;
     let mut flat = 0;
-    let residual_of = |c: &[f64]| -> (Vec<f64>, f64) {
-        let mut r = totals.clone();
-        let mut size: Vec<f64> = totals.iter().map(|t| t.abs()).collect();
-        for (k, list) in laws_of.iter().enumerate() {
-            for &(l, v) in list {
-                r[l] -= v * c[k];
-                size[l] += (v * c[k]).abs();
-            }
-        }
-        let worst = r
-            .iter()
-            .zip(&size)
-            .map(|(r, s)| r.abs() / s.max(f64::MIN_POSITIVE))
-            .fold(0.0, f64::max);
-        (r, worst)
-    };
     for iteration in 1..=MAX_ITERATIONS {
         let c: Vec<f64> = x.iter().map(|v| v.exp()).collect();
         if c.iter().any(|v| !v.is_finite()) {
             return Err(infeasible());
         }
-        let (r, total_residual) = residual_of(&c);
-        let Some((delta_lambda, dx)) = newton_step(&laws_of, m, &c, &r) else {
+        let (r, total_residual) = by_species.residual(&c);
+        let Some((delta_lambda, dx)) = newton_step(laws_of, m, &c, &r) else {
             return Err(infeasible());
         };
         let step = dx.iter().fold(0.0_f64, |s, v| s.max(v.abs()));
@@ -605,12 +583,51 @@ fn maximise_dual(g: &[f64], laws: &[(Row, f64)], c0: &[f64]) -> Result<(Vec<f64>
         }
     }
     let c: Vec<f64> = x.iter().map(|v| v.exp()).collect();
-    let (_, total_residual) = residual_of(&c);
+    let (_, total_residual) = by_species.residual(&c);
     Err(NoEquilibrium::NotConverged {
         iterations: MAX_ITERATIONS,
         total_residual,
         last_step: previous_step,
     })
+}
+
+/// The conservation laws seen from the species: for each species the laws it is in (the
+/// Hessian's sparsity), and each law's total.
+struct LawsBySpecies {
+    of: Vec<Vec<(usize, f64)>>,
+    totals: Vec<f64>,
+}
+
+impl LawsBySpecies {
+    fn new(laws: &[(Row, f64)], n: usize) -> LawsBySpecies {
+        let mut of: Vec<Vec<(usize, f64)>> = vec![Vec::new(); n];
+        for (l, (row, _)) in laws.iter().enumerate() {
+            for &(k, v) in row {
+                of[k].push((l, v));
+            }
+        }
+        let totals = laws.iter().map(|(_, t)| *t).collect();
+        LawsBySpecies { of, totals }
+    }
+
+    /// Each law's total minus its value at c, and the largest of them relative to the size of
+    /// the law's terms (so a law of trace species is judged on its own scale).
+    fn residual(&self, c: &[f64]) -> (Vec<f64>, f64) {
+        let mut r = self.totals.clone();
+        let mut size: Vec<f64> = self.totals.iter().map(|t| t.abs()).collect();
+        for (k, list) in self.of.iter().enumerate() {
+            for &(l, v) in list {
+                r[l] -= v * c[k];
+                size[l] += (v * c[k]).abs();
+            }
+        }
+        let worst = r
+            .iter()
+            .zip(&size)
+            .map(|(r, s)| r.abs() / s.max(f64::MIN_POSITIVE))
+            .fold(0.0, f64::max);
+        (r, worst)
+    }
 }
 
 /// The Newton step of the dual: δλ from (L C Lᵀ) δλ = r, the Hessian scaled to unit diagonal

@@ -105,14 +105,34 @@ pub struct Stats {
 
 /// The integrated trajectory at every accepted step, with derivatives for Hermite
 /// interpolation between steps.
-#[derive(Debug, Clone)]
+#[derive(Debug, Clone, Default)]
 pub struct Trajectory {
     pub times: Vec<f64>,
     pub states: Vec<Vec<f64>>,
     pub derivatives: Vec<Vec<f64>>,
 }
 
+impl Stats {
+    fn for_solver(solver: &LinearSolver) -> Stats {
+        Stats {
+            method: "RODAS4 (Rosenbrock, order 4(3), L-stable)".into(),
+            linear_solver: match solver.is_sparse() {
+                true => "sparse LU",
+                false => "dense LU",
+            }
+            .into(),
+            ..Stats::default()
+        }
+    }
+}
+
 impl Trajectory {
+    fn push(&mut self, t: f64, state: &[f64], derivative: &[f64]) {
+        self.times.push(t);
+        self.states.push(state.to_vec());
+        self.derivatives.push(derivative.to_vec());
+    }
+
     pub fn end_time(&self) -> f64 {
         *self.times.last().expect("trajectory has the initial point")
     }
@@ -257,19 +277,10 @@ pub fn integrate(
 ) -> Result<Solution, IntegrationError> {
     let started = Instant::now();
     let n = model.n_species();
-    let mut stats = Stats {
-        method: "RODAS4 (Rosenbrock, order 4(3), L-stable)".into(),
-        ..Stats::default()
-    };
     let jac_pattern = model.pattern().clone();
     let diagonal = jac_pattern.diagonal_positions();
     let mut solver = LinearSolver::new(jac_pattern.clone(), options.force_dense);
-    stats.linear_solver = if solver.is_sparse() {
-        "sparse LU"
-    } else {
-        "dense LU"
-    }
-    .into();
+    let mut stats = Stats::for_solver(&solver);
     let mut detector = EquilibriumDetector::new(&jac_pattern, laws, options.force_dense);
     let projection = Projection::new(laws, c0);
 
@@ -281,11 +292,8 @@ pub fn integrate(
     let mut f = vec![0.0; n];
     model.rhs(&y, &mut f);
     stats.rhs_evals += 1;
-    let mut trajectory = Trajectory {
-        times: vec![0.0],
-        states: vec![y.clone()],
-        derivatives: vec![f.clone()],
-    };
+    let mut trajectory = Trajectory::default();
+    trajectory.push(0.0, &y, &f);
     let mut h = initial_step(&y, &f, options, end);
     let mut rodas = Rodas4::new(n, jac_pattern.nnz(), diagonal);
     let mut y_new = vec![0.0; n];
@@ -302,46 +310,22 @@ pub fn integrate(
             }
             Move::Step => {}
         }
-        // The requested time while it is still ahead, else the horizon.
-        let target = options.until.filter(|&u| t < u).unwrap_or(max_time);
-        h = h.min(target - t);
-        if h <= 1e-14 * t.max(1e-300) || !h.is_finite() {
-            return Err(IntegrationError { time: t, step: h });
-        }
+        h = step_within(h, t, options.until, max_time)?;
 
-        // One RODAS4 step from (t, y) with step h.
-        if !rodas.step(model, &mut solver, &y, &f, h, &mut y_new, &mut stats) {
-            h *= 0.25;
-            stats.rejected_steps += 1;
-            rejected_last = true;
-            continue;
-        }
-        let (err, negative) = error_norm(&rodas.u[5], &y, &y_new, options);
-        if !err.is_finite() || negative < -1.0 {
-            if err <= 1.0 && negative < -1.0 {
-                stats.negative_rejections += 1;
-            }
-            stats.rejected_steps += 1;
-            h *= if err.is_finite() && err > 1.0 {
-                factor(err).min(1.0)
-            } else {
-                0.25
-            };
-            rejected_last = true;
-            continue;
-        }
-        if err > 1.0 {
-            stats.rejected_steps += 1;
-            h *= factor(err).min(1.0);
+        // One RODAS4 step from (t, y) with step h, kept or retried smaller.
+        let computed = rodas.step(model, &mut solver, &y, &f, h, &mut y_new, &mut stats);
+        let (err, negative) = match computed {
+            true => error_norm(&rodas.u[5], &y, &y_new, options),
+            false => (f64::NAN, 0.0), // singular iteration matrix: retry smaller
+        };
+        if let Some(shrink) = rejection(err, negative, &mut stats) {
+            h *= shrink;
             rejected_last = true;
             continue;
         }
 
         // Accept.
-        t += h;
-        if options.until.is_some_and(|u| (t - u).abs() <= 1e-12 * u) {
-            t = options.until.unwrap_or(t);
-        }
+        t = advanced(t, h, options.until);
         std::mem::swap(&mut y, &mut y_new);
         if let Some(projection) = &projection {
             projection.apply(&mut y, &options.atol);
@@ -350,9 +334,7 @@ pub fn integrate(
         stats.rhs_evals += 1;
         stats.steps += 1;
         worst_negative = worst_negative.min(negative);
-        trajectory.times.push(t);
-        trajectory.states.push(y.clone());
-        trajectory.derivatives.push(f.clone());
+        trajectory.push(t, &y, &f);
 
         if options.to_equilibrium && equilibrium_at.is_none() {
             // y_new holds the state before the step.
@@ -365,9 +347,7 @@ pub fn integrate(
                 (&y, &y_new, &f),
                 (t, h),
             );
-            if reached {
-                equilibrium_at = Some(t);
-            }
+            equilibrium_at = reached.then_some(t);
         }
 
         let grow = factor(err);
@@ -381,6 +361,43 @@ pub fn integrate(
         stop,
         equilibrium_at,
         worst_negative,
+    })
+}
+
+/// The step cut so it ends at the requested time while that is still ahead, else at the
+/// horizon; an error when it has shrunk to rounding.
+fn step_within(h: f64, t: f64, until: Option<f64>, max_time: f64) -> Result<f64, IntegrationError> {
+    let target = until.filter(|&u| t < u).unwrap_or(max_time);
+    let h = h.min(target - t);
+    if h <= 1e-14 * t.max(1e-300) || !h.is_finite() {
+        return Err(IntegrationError { time: t, step: h });
+    }
+    Ok(h)
+}
+
+/// t + h, landing exactly on the requested time when within rounding of it.
+fn advanced(t: f64, h: f64, until: Option<f64>) -> f64 {
+    match until {
+        Some(u) if (t + h - u).abs() <= 1e-12 * u => u,
+        _ => t + h,
+    }
+}
+
+/// The factor to shrink the step by when a computed step is not kept (error above tolerance,
+/// not finite, or a concentration far below zero), counting the rejection; `None` keeps it.
+fn rejection(err: f64, negative: f64, stats: &mut Stats) -> Option<f64> {
+    if err <= 1.0 && negative >= -1.0 {
+        return None;
+    }
+    stats.rejected_steps += 1;
+    if err <= 1.0 {
+        stats.negative_rejections += 1;
+        return Some(0.25);
+    }
+    Some(if err.is_finite() {
+        factor(err).min(1.0)
+    } else {
+        0.25
     })
 }
 

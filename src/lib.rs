@@ -1,22 +1,26 @@
 //! kinequil: reversible reaction networks in closed, isothermal batches.
 //!
-//! Data flows one way: a network file is read into a [`network::Network`], its
-//! [`stoich::Stoichiometry`] and [`kinetics::RateModel`] are built, [`integrate`] runs the stiff
-//! integration, [`analysis`] derives time to equilibrium, and [`report`] writes the files.
+//! Data flows one way: a network file (or a [`NetworkBuilder`]) gives a [`Network`], its
+//! [`Stoichiometry`] and [`RateModel`] are built, [`integrate`] runs the stiff integration, the
+//! equilibrium is solved on its own by [`solve_equilibrium`], and the report renders the files.
 //!
-//! Entry points for using kinequil as a library:
-//! - a network: [`network::Network::from_file`], or [`network::NetworkBuilder`] in code;
-//!   [`network::Network::at_temperature`] and [`network::Network::with_factor`] give the same
-//!   network at another temperature or with a constant scaled, without reading text again;
-//! - a run (integration to equilibrium, times to equilibrium, the solve and the audit):
-//!   [`run::run`] with [`run::RunSettings`];
-//! - the equilibrium alone: [`equilibrium::solve`]; the consistency audit: [`audit::audit`].
+//! The library's surface is this page; the modules behind it are private.
+//! - **A network**: [`Network::from_file`] or [`NetworkBuilder`] in code;
+//!   [`Network::at_temperature`] and [`Network::with_factor`] give the same network at another
+//!   temperature or with a constant scaled, without reading text again.
+//! - **A run** (integration to equilibrium, times to equilibrium, the solve and the audit):
+//!   [`run()`] with [`RunSettings`], giving a [`RunResult`].
+//! - **The equilibrium alone**: [`solve_equilibrium`]; **the consistency audit**: [`audit()`].
+//! - **The engine underneath**, for driving the integration yourself: [`RateModel`] (rates and
+//!   analytic Jacobian), [`integrate`] with [`IntegrationOptions`], [`relaxation_modes`].
+//! - **Reports**: [`render_run`] gives every output file as bytes, [`write_run_folder`] writes
+//!   them whole or not at all; [`Summary`], [`terminal_text`], [`audit_text`], [`EquilibriumTable`] for text.
 //!
 //! The README's example (kept identical by `tests/docs.rs`):
 //!
 //! ```
 //! # fn main() -> Result<(), Box<dyn std::error::Error>> {
-//! use kinequil::network::{Constant, NetworkBuilder};
+//! use kinequil::{Constant, NetworkBuilder};
 //!
 //! let network = NetworkBuilder::new("isomerisation")
 //!     .species("A", 1.0)
@@ -26,28 +30,56 @@
 //!     .build()?;
 //! let warmer = network.at_temperature(333.15)?;              // constants re-evaluated, no text
 //! let faster = network.with_factor(0, Constant::Kf, 2.0)?;   // kf × 2 at every temperature
-//! let result = kinequil::run::run(&faster, &kinequil::run::RunSettings::default())?;
+//! let result = kinequil::run(&faster, &kinequil::RunSettings::default())?;
 //! # assert!(result.solution.equilibrium_at.is_some() && warmer.temperature == 333.15);
 //! # Ok(())
 //! # }
 //! ```
 
-pub mod analysis;
-pub mod audit;
+mod analysis;
+mod audit;
+mod constants;
+mod equilibrium;
+mod error;
+mod format;
+mod integrate;
+mod kinetics;
+mod linalg;
+mod network;
+mod relaxation;
+mod report;
+mod run;
+mod stoich;
+mod units;
+
+/// The command line behind the `kinequil` binary; not part of the library's surface.
+#[doc(hidden)]
 pub mod cli;
-pub mod constants;
-pub mod equilibrium;
-pub mod error;
-pub mod format;
-pub mod integrate;
-pub mod kinetics;
-pub mod linalg;
-pub mod network;
-pub mod relaxation;
-pub mod report;
-pub mod run;
-pub mod stoich;
-pub mod units;
+
+pub use audit::{audit, corrected_network_text, Adjust, Audit, DEFAULT_TOL_KJ};
+pub use constants::GAS_CONSTANT;
+pub use equilibrium::{extents, solve as solve_equilibrium, Equilibrium, NoEquilibrium};
+pub use error::{Error, InputError, IntegrationError};
+pub use format::number as format_number;
+pub use integrate::{
+    integrate, Options as IntegrationOptions, Solution, StopReason, Trajectory, DEFAULT_ATOL,
+    DEFAULT_MAX_TIME, DEFAULT_RTOL,
+};
+pub use kinetics::RateModel;
+pub use network::{
+    parse_equation, parse_formula, Constant, Formula, Network, NetworkBuilder, ParsedEquation, Phase,
+    Reaction, Species,
+};
+pub use relaxation::{modes as relaxation_modes, Mode};
+pub use report::summary::Summary;
+pub use report::{
+    audit_table::render as audit_text, chart::ChartOptions, chart::TimeAxis,
+    equilibrium_table::EquilibriumTable, render_run, terminal::render as terminal_text,
+    write_all as write_run_folder, RUN_MARKER,
+};
+pub use run::{run, RunResult, RunSettings};
+pub use stoich::{ConservationLaw, Stoichiometry};
+pub use units::parse_quantity;
 
 /// The cautions every report carries.
 pub const CAUTIONS: [&str; 4] = [

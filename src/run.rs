@@ -146,16 +146,7 @@ pub fn run(network: &Network, settings: &RunSettings) -> Result<RunResult, Error
         Ok(exact) => relaxation::modes(network, &exact.concentrations),
         Err(_) => Err("needs an equilibrium (see the equilibrium line)".to_string()),
     };
-    let options = Options {
-        rtol: settings.rtol,
-        atol: atol.clone(),
-        until: settings.until,
-        force_dense: settings.force_dense,
-        target: solved.as_ref().ok().map(|e| e.concentrations.clone()),
-        max_time: horizon(&relaxation),
-        max_seconds: settings.max_seconds,
-        ..Options::new(network.n_species())
-    };
+    let options = integration_options(network, settings, &atol, &solved, &relaxation);
     let solution = integrate::integrate(
         &model,
         &stoichiometry.local_conservation,
@@ -174,13 +165,7 @@ pub fn run(network: &Network, settings: &RunSettings) -> Result<RunResult, Error
         (Some(integrated), Ok(exact)) => compare(integrated, &exact.concentrations, &atol, settings.rtol),
         _ => (None, false),
     };
-    // Times to equilibrium are measured against the solved equilibrium when the routes agree
-    // (it is exact), else against the integrated end state.
-    let settle_reference = match (&equilibrium, &solved) {
-        (Some(_), Ok(exact)) if !disagrees => Some(&exact.concentrations),
-        (Some(integrated), _) => Some(integrated),
-        (None, _) => None,
-    };
+    let settle_reference = settle_reference(equilibrium.as_ref(), &solved, disagrees);
     let settling = settling(
         trajectory,
         settle_reference.map(|c| c.as_slice()),
@@ -220,6 +205,40 @@ pub fn run(network: &Network, settings: &RunSettings) -> Result<RunResult, Error
         progress,
         audit: audit::audit(network, audit::DEFAULT_TOL_KJ, audit::Adjust::Kr),
     })
+}
+
+/// The integration's settings from the run's: per-species tolerances, the solved equilibrium
+/// as the target, and a horizon long enough for the slowest relaxation.
+fn integration_options(
+    network: &Network,
+    settings: &RunSettings,
+    atol: &[f64],
+    solved: &Result<Equilibrium, NoEquilibrium>,
+    relaxation: &Result<Vec<Mode>, String>,
+) -> Options {
+    Options {
+        rtol: settings.rtol,
+        atol: atol.to_vec(),
+        until: settings.until,
+        force_dense: settings.force_dense,
+        target: solved.as_ref().ok().map(|e| e.concentrations.clone()),
+        max_time: horizon(relaxation),
+        max_seconds: settings.max_seconds,
+        ..Options::new(network.n_species())
+    }
+}
+
+/// What times to equilibrium are measured against: the solved equilibrium when the routes
+/// agree (it is exact), else the integrated end state; nothing when equilibrium was not reached.
+fn settle_reference<'a>(
+    integrated: Option<&'a Vec<f64>>,
+    solved: &'a Result<Equilibrium, NoEquilibrium>,
+    disagrees: bool,
+) -> Option<&'a Vec<f64>> {
+    match (integrated, solved) {
+        (Some(_), Ok(exact)) if !disagrees => Some(&exact.concentrations),
+        (integrated, _) => integrated,
+    }
 }
 
 /// Times to equilibrium at each tolerance against `reference` (none without one).

@@ -1,8 +1,8 @@
 //! The consistency audit against hand calculations, the Wegscheider condition and a published
 //! thermochemical table.
 
-use kinequil::audit::{audit, corrected_network_text, Adjust};
-use kinequil::constants::GAS_CONSTANT;
+use kinequil::GAS_CONSTANT;
+use kinequil::{audit, corrected_network_text, Adjust};
 
 use crate::util::{network, rel};
 
@@ -236,7 +236,7 @@ fn large_networks_report_cycles_by_their_closing_step() {
 /// again at the same temperature: it must be consistent, and say what it changed in place.
 fn round_trip(text: &str, adjust: Adjust, temperature: Option<f64>) -> String {
     let read = |t: &str| {
-        kinequil::network::Network::from_text_at(t, std::path::Path::new("inline.toml"), temperature)
+        kinequil::Network::from_text_at(t, std::path::Path::new("inline.toml"), temperature)
             .unwrap_or_else(|e| panic!("{e}\n{t}"))
     };
     let found = audit(&read(text), 0.1, adjust);

@@ -148,7 +148,7 @@ fn a_run_writes_all_outputs_and_never_overwrites_silently() {
         .unwrap()
         .filter_map(|e| e.ok())
         .map(|e| e.file_name().to_string_lossy().into_owned())
-        .filter(|name| name.starts_with('.') && name != kinequil::report::RUN_MARKER)
+        .filter(|name| name.starts_with('.') && name != kinequil::RUN_MARKER)
         .collect();
     assert!(leftovers.is_empty(), "staging folder left behind: {leftovers:?}");
 }

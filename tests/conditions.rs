@@ -3,9 +3,9 @@
 
 use std::path::Path;
 
-use kinequil::audit::{audit, Adjust};
-use kinequil::constants::GAS_CONSTANT;
-use kinequil::network::Network;
+use kinequil::Network;
+use kinequil::GAS_CONSTANT;
+use kinequil::{audit, Adjust};
 
 use crate::util::{network, rel, run_with};
 
@@ -304,7 +304,7 @@ fn one_network_evaluates_at_any_temperature_without_rereading() {
 
 #[test]
 fn constants_scale_by_factors_in_their_own_form() {
-    use kinequil::network::Constant;
+    use kinequil::Constant;
     let base = network(SWEEPABLE);
     let (kf, kr, k) = (
         base.reactions[0].kf,

@@ -3,8 +3,8 @@
 
 use std::path::Path;
 
-use kinequil::network::Network;
-use kinequil::run::{run, RunSettings};
+use kinequil::Network;
+use kinequil::{run, RunSettings};
 
 #[test]
 fn readme_network_example_parses() {

@@ -11,24 +11,24 @@
 //! result, e.g. Steinfeld, Francisco & Hase, Chemical Kinetics and Dynamics, consecutive
 //! reversible reactions).
 
-use kinequil::equilibrium::{self, NoEquilibrium};
-use kinequil::integrate::{integrate, Options};
-use kinequil::kinetics::RateModel;
-use kinequil::relaxation;
-use kinequil::stoich::Stoichiometry;
+use kinequil::relaxation_modes;
+use kinequil::RateModel;
+use kinequil::Stoichiometry;
+use kinequil::{integrate, IntegrationOptions as Options};
+use kinequil::{solve_equilibrium, NoEquilibrium};
 
 use crate::util::{network, rel, run_with, SplitMix};
 
 fn solve(text: &str) -> Vec<f64> {
     let net = network(text);
     let stoich = Stoichiometry::new(&net);
-    equilibrium::solve(&net, &stoich)
+    solve_equilibrium(&net, &stoich)
         .unwrap_or_else(|e| panic!("{e}"))
         .concentrations
 }
 
 fn taus(text: &str, c_eq: &[f64]) -> Vec<f64> {
-    relaxation::modes(&network(text), c_eq)
+    relaxation_modes(&network(text), c_eq)
         .unwrap()
         .iter()
         .map(|m| m.tau_seconds)
@@ -171,7 +171,7 @@ kr = 0.04
         1.0 / fast
     );
     // The slow mode is set mostly by the slow step B <=> C.
-    let modes = relaxation::modes(&network(text), &c).unwrap();
+    let modes = relaxation_modes(&network(text), &c).unwrap();
     assert_eq!(modes[0].steps[0].name, "B <=> C");
 }
 
@@ -213,7 +213,7 @@ K = 0.04
 fn says_clearly_when_there_is_no_equilibrium() {
     let one_way = "[species]\nA = 1.0\nB = 0.0\n\n[[reaction]]\nequation = \"A => B\"\nkf = 1.0\n";
     let net = network(one_way);
-    let err = equilibrium::solve(&net, &Stoichiometry::new(&net)).unwrap_err();
+    let err = solve_equilibrium(&net, &Stoichiometry::new(&net)).unwrap_err();
     assert!(matches!(err, NoEquilibrium::OneWaySteps(_)), "{err}");
 
     // A cycle whose K product is 2, not 1 (Wegscheider condition broken).
@@ -239,7 +239,7 @@ kf = 1.0
 K = 1.0
 "#;
     let net = network(cycle);
-    let err = equilibrium::solve(&net, &Stoichiometry::new(&net)).unwrap_err();
+    let err = solve_equilibrium(&net, &Stoichiometry::new(&net)).unwrap_err();
     match err {
         NoEquilibrium::InconsistentCycle { mismatch, .. } => {
             assert!((mismatch.abs() - 2f64.ln()).abs() < 1e-12)

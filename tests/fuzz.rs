@@ -15,10 +15,10 @@ use std::panic::{catch_unwind, AssertUnwindSafe};
 use std::path::Path;
 use std::time::{Duration, Instant};
 
-use kinequil::network::{parse_equation, parse_formula, Network};
-use kinequil::run::{run, RunSettings};
-use kinequil::stoich::Stoichiometry;
-use kinequil::units::parse_quantity;
+use kinequil::parse_quantity;
+use kinequil::Stoichiometry;
+use kinequil::{parse_equation, parse_formula, Network};
+use kinequil::{run, RunSettings};
 
 use crate::util::SplitMix;
 
@@ -156,21 +156,16 @@ fn exercise(text: &str) -> Result<(), String> {
             return Ok(());
         }
         let stoich = Stoichiometry::new(&net);
-        if let Ok(solved) = kinequil::equilibrium::solve(&net, &stoich) {
+        if let Ok(solved) = kinequil::solve_equilibrium(&net, &stoich) {
             let c0 = net.initial_state();
-            let extents = kinequil::equilibrium::extents(&stoich, &c0, &solved.concentrations);
-            let table = kinequil::report::equilibrium_table::EquilibriumTable::new(
-                &net,
-                &c0,
-                &solved,
-                extents.as_deref(),
-            );
+            let extents = kinequil::extents(&stoich, &c0, &solved.concentrations);
+            let table = kinequil::EquilibriumTable::new(&net, &c0, &solved, extents.as_deref());
             if has_non_number(&table.text()) {
                 return Err(format!("equilibrium table holds a non-number:\n{}", table.text()));
             }
         }
-        let audit = kinequil::audit::audit(&net, 0.1, kinequil::audit::Adjust::Kr);
-        let audit_text = kinequil::report::audit_table::render(&net, &audit);
+        let audit = kinequil::audit(&net, 0.1, kinequil::Adjust::Kr);
+        let audit_text = kinequil::audit_text(&net, &audit);
         if has_non_number(&audit_text) {
             return Err(format!("audit report holds a non-number:\n{audit_text}"));
         }
@@ -179,11 +174,11 @@ fn exercise(text: &str) -> Result<(), String> {
             ..RunSettings::default()
         };
         if let Ok(result) = run(&net, &settings) {
-            let terminal = kinequil::report::terminal::render(&result, &[]);
+            let terminal = kinequil::terminal_text(&result, &[]);
             if has_non_number(&terminal) {
                 return Err(format!("terminal output holds a non-number:\n{terminal}"));
             }
-            let summary = kinequil::report::summary::Summary::from_result(&result);
+            let summary = kinequil::Summary::from_result(&result);
             serde_json::to_string(&summary).map_err(|e| e.to_string())?;
         }
         Ok(())

@@ -7,7 +7,7 @@ use std::path::Path;
 use std::process::{Command, Stdio};
 use std::time::Duration;
 
-use kinequil::network::Network;
+use kinequil::Network;
 
 use crate::util::{kinequil, write_case, ISOMERISATION};
 
@@ -118,7 +118,7 @@ fn twenty_thousand_spectators_answer_at_once() {
     }
     text += "\n[[reaction]]\nequation = \"X0 <=> X1\"\nkf = 1.0\nkr = 2.0\n";
     let net = Network::from_text(&text, Path::new("many.toml")).unwrap();
-    let solved = kinequil::equilibrium::solve(&net, &kinequil::stoich::Stoichiometry::new(&net)).unwrap();
+    let solved = kinequil::solve_equilibrium(&net, &kinequil::Stoichiometry::new(&net)).unwrap();
     // X0 + X1 = 2 with X1/X0 = 1/2 (K = kf/kr): X0 = 4/3 (by hand), to rounding.
     assert!((solved.concentrations[0] - 4.0 / 3.0).abs() < 1e-12);
     assert_eq!(solved.concentrations[19_999], 1.0);

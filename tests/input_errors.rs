@@ -2,7 +2,7 @@
 
 use std::path::Path;
 
-use kinequil::network::Network;
+use kinequil::Network;
 
 /// (case, network text, expected line, expected field, a phrase the message must contain)
 const CASES: &[(&str, &str, Option<usize>, &str, &str)] = &[
@@ -125,7 +125,7 @@ fn every_bad_input_names_file_line_and_field() {
 
 #[test]
 fn networks_built_in_code_are_checked_like_files() {
-    use kinequil::network::NetworkBuilder;
+    use kinequil::NetworkBuilder;
     let err = |b: NetworkBuilder| b.build().unwrap_err().to_string();
     let two = || NetworkBuilder::new("t").species("A", 1.0).species("B", 0.0);
     assert!(err(two().species("A", 2.0).reaction("A <=> B", 1.0).kr(1.0)).contains("listed twice"));

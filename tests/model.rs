@@ -1,8 +1,8 @@
 //! Properties of the model itself: the analytic Jacobian against finite differences on random
 //! states, and conservation laws held along the trajectory.
 
-use kinequil::kinetics::RateModel;
-use kinequil::stoich::Stoichiometry;
+use kinequil::RateModel;
+use kinequil::Stoichiometry;
 
 use crate::util::{network, run_with, SplitMix};
 

@@ -4,7 +4,7 @@
 use std::path::Path;
 use std::process::Command;
 
-use kinequil::format::number;
+use kinequil::format_number as number;
 
 fn kinequil(args: &[&str]) -> std::process::Output {
     Command::new(env!("CARGO_BIN_EXE_kinequil"))
@@ -223,13 +223,13 @@ fn chosen_species_units_axis_and_output_times() {
 
 #[test]
 fn summary_carries_stable_tags_beside_the_sentences() {
-    use kinequil::report::summary::Summary;
+    use kinequil::Summary;
     let case = |name: &str| {
         let path = std::path::Path::new(env!("CARGO_MANIFEST_DIR"))
             .join("cases")
             .join(name);
-        let net = kinequil::network::Network::from_file(&path).unwrap();
-        let result = kinequil::run::run(&net, &kinequil::run::RunSettings::default()).unwrap();
+        let net = kinequil::Network::from_file(&path).unwrap();
+        let result = kinequil::run(&net, &kinequil::RunSettings::default()).unwrap();
         serde_json::to_value(Summary::from_result(&result)).unwrap()
     };
     let demo = case("demo.toml");

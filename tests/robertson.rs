@@ -9,9 +9,9 @@
 // Reference values are kept digit for digit as published.
 #![allow(clippy::excessive_precision)]
 
-use kinequil::integrate::{integrate, Options};
-use kinequil::kinetics::RateModel;
-use kinequil::stoich::Stoichiometry;
+use kinequil::RateModel;
+use kinequil::Stoichiometry;
+use kinequil::{integrate, IntegrationOptions as Options};
 
 use crate::util::{network, rel};
 

@@ -10,9 +10,9 @@
 //! common practice). The phase rule (a pure phase is either present at activity 1 or absent with
 //! the solution undersaturated in it) is standard chemical thermodynamics.
 
-use kinequil::equilibrium;
-use kinequil::run::{run, RunSettings};
-use kinequil::stoich::Stoichiometry;
+use kinequil::solve_equilibrium;
+use kinequil::Stoichiometry;
+use kinequil::{run, RunSettings};
 
 use crate::util::{network, rel, SplitMix};
 
@@ -27,8 +27,7 @@ fn text(species: &[(&str, f64)], order: &[usize], reactions: &str) -> String {
 
 fn solve_named(text: &str) -> Vec<(String, f64)> {
     let net = network(text);
-    let solved =
-        equilibrium::solve(&net, &Stoichiometry::new(&net)).unwrap_or_else(|e| panic!("{e}\n{text}"));
+    let solved = solve_equilibrium(&net, &Stoichiometry::new(&net)).unwrap_or_else(|e| panic!("{e}\n{text}"));
     net.species
         .iter()
         .zip(solved.concentrations)
@@ -278,7 +277,7 @@ fn random_detailed_balance_networks_solve_detect_and_agree() {
             widest_stiffness = widest_stiffness.max(slow.tau_seconds / fast.tau_seconds);
         }
         let slowest = modes.first().map_or(0.0, |m| m.tau_seconds);
-        if slowest * 1000f64.ln() <= kinequil::integrate::DEFAULT_MAX_TIME {
+        if slowest * 1000f64.ln() <= kinequil::DEFAULT_MAX_TIME {
             assert!(
                 result.solution.equilibrium_at.is_some(),
                 "seed {seed}: equilibrium not detected (τ slowest {slowest:e} s, stopped at {:e} s)",
@@ -369,7 +368,7 @@ kf = 1.0
 K = 0.01
 "#;
     let net = network(t);
-    let solved = equilibrium::solve(&net, &Stoichiometry::new(&net)).unwrap_or_else(|e| panic!("{e}"));
+    let solved = solve_equilibrium(&net, &Stoichiometry::new(&net)).unwrap_or_else(|e| panic!("{e}"));
     let c = &solved.concentrations;
     assert_eq!(c[0], 0.0);
     assert!(rel(c[1], 1.49) < 1e-12 && rel(c[2], 0.01) < 1e-12, "{c:?}");
@@ -398,11 +397,11 @@ fn a_used_up_solid_that_would_reform_is_not_accepted() {
         )
     };
     let net = network(&t(0.1));
-    let solved = equilibrium::solve(&net, &Stoichiometry::new(&net)).unwrap();
+    let solved = solve_equilibrium(&net, &Stoichiometry::new(&net)).unwrap();
     let b = (-0.5 + (0.25f64 + 0.16).sqrt()) / 2.0;
     assert!(rel(solved.concentrations[2], b) < 1e-12 && rel(solved.concentrations[0], 0.1 - b) < 1e-12);
     let net = network(&t(0.01));
-    let solved = equilibrium::solve(&net, &Stoichiometry::new(&net)).unwrap();
+    let solved = solve_equilibrium(&net, &Stoichiometry::new(&net)).unwrap();
     assert_eq!(solved.used_up, vec!["S".to_string()]);
     assert!(rel(solved.concentrations[1], 0.51) < 1e-12 && rel(solved.concentrations[2], 0.01) < 1e-12);
     assert!(solved.concentrations[1] * solved.concentrations[2] < 0.04);
@@ -414,7 +413,7 @@ fn every_bundled_case_with_an_equilibrium_reaches_it_and_the_routes_agree() {
     let mut checked = 0;
     for entry in std::fs::read_dir(dir).unwrap() {
         let path = entry.unwrap().path();
-        let net = kinequil::network::Network::from_file(&path).unwrap();
+        let net = kinequil::Network::from_file(&path).unwrap();
         let result = run(&net, &RunSettings::default()).expect("bundled case runs");
         let name = path.display();
         if net.reactions.iter().all(|r| r.reversible) {
@@ -443,7 +442,7 @@ fn a_horizon_too_short_is_said_with_figures_not_blamed_on_one_way_steps() {
     let t = "[species]\nA = 1.0\nB = 0.0\n\n[[reaction]]\nequation = \"A <=> B\"\nkf = 1e-17\nkr = 1e-17\n";
     let result = run(&network(t), &RunSettings::default()).expect("run succeeds");
     assert!(result.solution.equilibrium_at.is_none());
-    let said = kinequil::report::summary::stop_description(&result);
+    let said = kinequil::Summary::from_result(&result).stop_reason;
     assert!(
         said.contains("use --until") && said.contains("relaxation time"),
         "{said}"
@@ -461,13 +460,17 @@ fn an_approach_far_from_the_linear_regime_is_flagged() {
     let t = "[species]\nA = 1.0\nB = 0.0\n\n[[reaction]]\nequation = \"2 A <=> B\"\nkf = 1e6\nkr = 1e-8\n";
     let result = run(&network(t), &RunSettings::default()).expect("run succeeds");
     assert!(result.solution.equilibrium_at.is_some() && !result.disagrees);
-    let note = kinequil::report::summary::nonlinear_approach_note(&result).expect("a note");
+    let note = kinequil::Summary::from_result(&result)
+        .relaxation_estimate_note
+        .expect("a note");
     assert!(note.contains("not in the linear regime"), "{note}");
     // The demo batch is close to linear: no note there.
-    let demo = kinequil::network::Network::from_file(
+    let demo = kinequil::Network::from_file(
         &std::path::Path::new(env!("CARGO_MANIFEST_DIR")).join("cases/demo.toml"),
     )
     .unwrap();
     let result = run(&demo, &RunSettings::default()).expect("run succeeds");
-    assert!(kinequil::report::summary::nonlinear_approach_note(&result).is_none());
+    assert!(kinequil::Summary::from_result(&result)
+        .relaxation_estimate_note
+        .is_none());
 }

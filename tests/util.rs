@@ -3,8 +3,8 @@
 use std::path::Path;
 use std::process::{Command, Output};
 
-use kinequil::network::Network;
-use kinequil::run::{run, RunResult, RunSettings};
+use kinequil::Network;
+use kinequil::{run, RunResult, RunSettings};
 
 /// A <=> B with kf = 2 and kr = 1 from A = 1: the smallest complete network, for tests of the
 /// command line and the output folders (closed form: A = 1/3 + 2/3 e^(−3t)).

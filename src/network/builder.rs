@@ -5,16 +5,16 @@ use std::path::PathBuf;
 
 use crate::error::InputError;
 
+use super::rules::{check_directions, check_name, resolve_side};
 use super::{
-    check_name, limits, parse_equation, AmountGiven, KForm, KGiven, Network, Origin, Phase, RateGiven,
-    Reaction, Species, DEFAULT_TEMPERATURE_K,
+    parse_equation, AmountGiven, KForm, KGiven, Network, Origin, Phase, RateGiven, Reaction, Species,
+    DEFAULT_TEMPERATURE_K,
 };
 
 /// Builds a [`Network`] step by step; constants are in mol/L and s, the temperature in K.
 ///
 /// ```
-/// use kinequil::network::NetworkBuilder;
-/// use kinequil::stoich::Stoichiometry;
+/// use kinequil::{NetworkBuilder, Stoichiometry};
 ///
 /// let network = NetworkBuilder::new("isomerisation")
 ///     .species("A", 1.0)
@@ -23,9 +23,9 @@ use super::{
 ///     .kr(1.0)
 ///     .build()?;
 /// // K = kf/kr = 2, so two thirds end up as B.
-/// let solved = kinequil::equilibrium::solve(&network, &Stoichiometry::new(&network))?;
+/// let solved = kinequil::solve_equilibrium(&network, &Stoichiometry::new(&network))?;
 /// assert!((solved.concentrations[1] - 2.0 / 3.0).abs() < 1e-12);
-/// let result = kinequil::run::run(&network, &kinequil::run::RunSettings::default())?;
+/// let result = kinequil::run(&network, &kinequil::RunSettings::default())?;
 /// assert!(result.solution.equilibrium_at.is_some() && !result.disagrees);
 /// # Ok::<(), Box<dyn std::error::Error>>(())
 /// ```
@@ -123,18 +123,13 @@ impl NetworkBuilder {
             if !(initial.is_finite() && *initial >= 0.0) {
                 return Err(fail(field, "a concentration must be a finite number ≥ 0".into()));
             }
-            species.push(Species {
-                name: name.clone(),
-                initial: 0.0,
-                initial_spec: AmountGiven::Concentration(initial.abs()),
-                initial_origin: Origin { line: None, field },
-                phase: *phase,
-                atol: None,
-                formula: None,
-                charge: 0.0,
-                gibbs_formation: None,
-                enthalpy_formation: None,
-            });
+            let origin = Origin { line: None, field };
+            species.push(Species::as_given(
+                name.clone(),
+                AmountGiven::Concentration(initial.abs()),
+                origin,
+                *phase,
+            ));
         }
         if self.reactions.is_empty() {
             return Err(fail("reaction".into(), "the network has no reaction".into()));
@@ -157,117 +152,52 @@ impl NetworkBuilder {
     }
 }
 
-/// One pending step checked and resolved against the species.
+/// One pending step checked and resolved against the species, by the reader's rules.
 fn built_reaction(
     pending: &Pending,
     j: usize,
     species: &[Species],
     file: &std::path::Path,
 ) -> Result<Reaction, InputError> {
-    let fail = |field: String, message: String| InputError {
+    let field = format!("reaction[{}]", j + 1);
+    let fail = |sub: &str, message: String| InputError {
         file: file.to_path_buf(),
         line: None,
-        field,
+        field: format!("{field}{sub}"),
         message,
     };
-    let field = format!("reaction[{}]", j + 1);
-    let eq_field = format!("{field}.equation");
-    let parsed = parse_equation(&pending.equation).map_err(|m| fail(eq_field.clone(), m))?;
-    let resolve = |side: &[(String, f64)]| -> Result<Vec<(usize, f64)>, InputError> {
-        side.iter()
-            .map(|(name, c)| {
-                if *c > limits::MAX_COEFFICIENT {
-                    return Err(fail(
-                        eq_field.clone(),
-                        format!(
-                            "the coefficient {c:e} of `{name}` is above {}",
-                            limits::MAX_COEFFICIENT
-                        ),
-                    ));
-                }
-                species
-                    .iter()
-                    .position(|s| &s.name == name)
-                    .map(|i| (i, *c))
-                    .ok_or_else(|| fail(eq_field.clone(), format!("unknown species `{name}`")))
-            })
-            .collect()
-    };
-    let reactants = resolve(&parsed.reactants)?;
-    let products = resolve(&parsed.products)?;
-    let mass_action = |side: &[(usize, f64)]| -> Vec<(usize, f64)> {
-        side.iter()
-            .copied()
-            .filter(|e| species[e.0].in_rate_laws())
-            .collect()
+    let parsed = parse_equation(&pending.equation).map_err(|m| fail(".equation", m))?;
+    let resolve = |side: &[(String, f64)]| resolve_side(side, species).map_err(|m| fail(".equation", m));
+    let sides = (resolve(&parsed.reactants)?, resolve(&parsed.products)?);
+    let reverse_given = pending.kr.is_some() || pending.k.is_some();
+    check_directions(parsed.reversible, reverse_given).map_err(|m| fail("", m.into()))?;
+    let origin = |key: &str| Origin {
+        line: None,
+        field: format!("{field}.{key}"),
     };
     let constant = |k: f64, key: &str| -> Result<RateGiven, InputError> {
-        if !(k.is_finite() && k >= 0.0) {
-            return Err(fail(
-                format!("{field}.{key}"),
-                "must be a finite number ≥ 0".into(),
-            ));
+        match k.is_finite() && k >= 0.0 {
+            true => Ok(RateGiven::Value(k.abs())),
+            false => Err(fail(&format!(".{key}"), "must be a finite number ≥ 0".into())),
         }
-        Ok(RateGiven::Value(k.abs()))
     };
-    match (parsed.reversible, pending.kr.is_some() || pending.k.is_some()) {
-        (true, false) => {
-            return Err(fail(
-                field.clone(),
-                "a reversible step (`<=>`) needs either kr or the equilibrium constant".into(),
-            ))
-        }
-        (false, true) => {
-            return Err(fail(field.clone(), "a one-way step (`=>`) takes only kf".into()));
-        }
-        _ => {}
+    let kf = (constant(pending.kf, "kf")?, origin("kf"));
+    let mut step = Reaction::as_given(pending.equation.clone(), 0, sides, parsed.reversible, species, kf);
+    if let Some(kr) = pending.kr {
+        step.kr_spec = Some(constant(kr, "kr")?);
+        step.kr_origin = origin("kr");
+        step.kr_given = true;
     }
-    let k_spec = match pending.k {
-        Some(k) if !(k.is_finite() && k > 0.0) => {
-            return Err(fail(format!("{field}.K"), "must be positive".into()))
+    if let Some(k) = pending.k {
+        if !(k.is_finite() && k > 0.0) {
+            return Err(fail(".K", "must be positive".into()));
         }
-        Some(k) => Some(KGiven {
+        step.k_spec = Some(KGiven {
             form: KForm::Value(k),
             is_kp: false,
             delta_n_gas: 0.0,
-            origin: Origin {
-                line: None,
-                field: format!("{field}.K"),
-            },
-        }),
-        None => None,
-    };
-    Ok(Reaction {
-        equation: pending.equation.clone(),
-        line: 0,
-        forward_orders: mass_action(&reactants),
-        reverse_orders: if parsed.reversible {
-            mass_action(&products)
-        } else {
-            Vec::new()
-        },
-        reactants,
-        products,
-        reversible: parsed.reversible,
-        kf: 0.0,
-        kr: 0.0,
-        k_given: None,
-        kr_given: pending.kr.is_some(),
-        k_source: None,
-        enthalpy: None,
-        kf_arrhenius: None,
-        kr_arrhenius: None,
-        kf_spec: constant(pending.kf, "kf")?,
-        kf_origin: Origin {
-            line: None,
-            field: format!("{field}.kf"),
-        },
-        kr_spec: pending.kr.map(|kr| constant(kr, "kr")).transpose()?,
-        kr_origin: Origin {
-            line: None,
-            field: format!("{field}.kr"),
-        },
-        k_spec,
-        gibbs: None,
-    })
+            origin: origin("K"),
+        });
+    }
+    Ok(step)
 }

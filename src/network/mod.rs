@@ -8,6 +8,7 @@ mod builder;
 mod equation;
 mod formula;
 mod given;
+mod rules;
 
 pub use builder::NetworkBuilder;
 
@@ -25,6 +26,7 @@ use crate::error::{Error, InputError};
 use crate::units::{parse_quantity, Dimension};
 pub use equation::{parse_equation, ParsedEquation};
 pub use formula::{parse_formula, Formula};
+use rules::{check_directions, check_name, mass_action_orders, resolve_side};
 
 /// Run temperature when the file gives none (IUPAC standard ambient temperature).
 pub const DEFAULT_TEMPERATURE_K: f64 = 298.15;
@@ -85,6 +87,23 @@ pub struct Species {
 }
 
 impl Species {
+    /// A dissolved-by-default species as given, before evaluation; the optional properties
+    /// (formula, charge, tolerances, formation energies) start empty.
+    fn as_given(name: String, initial_spec: AmountGiven, initial_origin: Origin, phase: Phase) -> Species {
+        Species {
+            name,
+            initial: 0.0,
+            initial_spec,
+            initial_origin,
+            phase,
+            atol: None,
+            formula: None,
+            charge: 0.0,
+            gibbs_formation: None,
+            enthalpy_formation: None,
+        }
+    }
+
     /// True for species whose concentration enters rate laws and K (solutes and gases).
     pub fn in_rate_laws(&self) -> bool {
         self.phase != Phase::Pure
@@ -175,6 +194,46 @@ pub struct Network {
 /// the same law in the form the integrator differentiates (checked against `rates` in
 /// tests/model.rs).
 impl Reaction {
+    /// A step as given, before [`Network::evaluate`] fills in kf, kr and K at a temperature:
+    /// mass-action orders, and no reverse constant, K or ΔG until the caller adds them.
+    fn as_given(
+        equation: String,
+        line: usize,
+        sides: Sides,
+        reversible: bool,
+        species: &[Species],
+        kf: (RateGiven, Origin),
+    ) -> Reaction {
+        let (reactants, products) = sides;
+        Reaction {
+            equation,
+            line,
+            forward_orders: mass_action_orders(&reactants, species),
+            reverse_orders: if reversible {
+                mass_action_orders(&products, species)
+            } else {
+                Vec::new()
+            },
+            reactants,
+            products,
+            reversible,
+            kf: 0.0,
+            kr: 0.0,
+            k_given: None,
+            kr_given: false,
+            k_source: None,
+            enthalpy: None,
+            kf_arrhenius: None,
+            kr_arrhenius: None,
+            kf_spec: kf.0,
+            kf_origin: kf.1,
+            kr_spec: None,
+            kr_origin: Origin::default(),
+            k_spec: None,
+            gibbs: None,
+        }
+    }
+
     /// Both directions run (a reversible step with kf > 0 and kr > 0).
     pub fn runs_both_ways(&self) -> bool {
         self.reversible && self.kf > 0.0 && self.kr > 0.0
@@ -282,6 +341,9 @@ impl Network {
 /// Walks the spanned TOML tree so that every message can name a line.
 /// Rate-law orders of one direction: (species index, order).
 type Orders = Vec<(usize, f64)>;
+
+/// The reactants and products of a step as (species index, coefficient).
+type Sides = (Vec<(usize, f64)>, Vec<(usize, f64)>);
 
 /// A step's rate constants as given, with where they were written.
 struct RateSpecs {
@@ -417,21 +479,11 @@ impl<'a> Reader<'a> {
             let name = key.get_ref().to_string();
             let field = format!("species.{name}");
             check_name(&name).map_err(|m| self.error(Some(key.span()), &field, m))?;
-            let mut item = Species {
-                name,
-                initial: 0.0,
-                initial_spec: AmountGiven::Concentration(0.0),
-                initial_origin: Origin {
-                    line: Some(self.line_of(key.span().start)),
-                    field: field.clone(),
-                },
-                phase: Phase::Dissolved,
-                atol: None,
-                formula: None,
-                charge: 0.0,
-                gibbs_formation: None,
-                enthalpy_formation: None,
+            let origin = Origin {
+                line: Some(self.line_of(key.span().start)),
+                field: field.clone(),
             };
+            let mut item = Species::as_given(name, AmountGiven::Concentration(0.0), origin, Phase::Dissolved);
             let mut initial: Option<&Value<'_>> = None;
             match entry.get_ref() {
                 DeValue::Table(props) => {
@@ -527,50 +579,29 @@ impl<'a> Reader<'a> {
             kr_origin,
         } = self.rate_specs(table, item, field, &forward_orders, &reverse_orders)?;
         let k_spec = self.equilibrium_spec(table, field, species, &reactants, &products)?;
-        if reversible {
-            if kr_spec.is_none() && k_spec.is_none() {
-                return Err(self.error(
-                    Some(eq_span.clone()),
-                    field,
-                    "a reversible step (`<=>`) needs either kr or the equilibrium constant K (or Kp)",
-                ));
-            }
-        } else if let Some(key) = ["kr", "K", "Kp"].into_iter().find(|k| table.get(*k).is_some()) {
-            let sub = format!("{field}.{key}");
-            return Err(self.error(
-                table.get(key).map(|v| v.span()),
-                &sub,
-                "a one-way step (`=>`) takes only kf; write `<=>` for a reversible step",
-            ));
+        let reverse_keys = ["kr", "K", "Kp"];
+        let reverse_key = reverse_keys.into_iter().find(|k| table.get(*k).is_some());
+        if let Err(message) = check_directions(reversible, reverse_key.is_some()) {
+            let (span, sub) = match reverse_key {
+                Some(key) => (table.get(key).map(|v| v.span()), format!("{field}.{key}")),
+                None => (Some(eq_span), field.to_string()),
+            };
+            return Err(self.error(span, &sub, message));
         }
         let gibbs = match table.get("dG") {
             Some(v) => Some(self.energy_kj(v, &format!("{field}.dG"))?),
             None => None,
         };
-        // The numbers (kf, kr, K at the run temperature) are filled in by `Network::evaluate`.
-        Ok(Reaction {
-            equation,
-            line,
-            reactants,
-            products,
-            reversible,
-            kf: 0.0,
-            kr: 0.0,
-            k_given: None,
-            kr_given: table.get("kr").is_some(),
-            k_source: None,
-            enthalpy: None,
-            kf_arrhenius: None,
-            kr_arrhenius: None,
-            kf_spec,
-            kf_origin,
-            kr_spec,
-            kr_origin,
-            k_spec,
-            gibbs,
-            forward_orders,
-            reverse_orders,
-        })
+        let sides = (reactants, products);
+        let mut step = Reaction::as_given(equation, line, sides, reversible, species, (kf_spec, kf_origin));
+        step.forward_orders = forward_orders;
+        step.reverse_orders = reverse_orders;
+        step.kr_given = kr_spec.is_some();
+        step.kr_spec = kr_spec;
+        step.kr_origin = kr_origin;
+        step.k_spec = k_spec;
+        step.gibbs = gibbs;
+        Ok(step)
     }
 
     /// The forward and reverse rate-law orders of a step (the coefficients unless `orders` or
@@ -672,40 +703,11 @@ impl<'a> Reader<'a> {
         let equation = self.string(eq_value, &eq_field)?;
         let line = self.line_of(eq_value.span().start);
         let parsed = parse_equation(equation).map_err(|m| self.error(Some(eq_value.span()), &eq_field, m))?;
-        let resolve = |side: &[(String, f64)]| -> Result<Vec<(usize, f64)>, InputError> {
-            side.iter()
-                .map(|(name, coefficient)| {
-                    species
-                        .iter()
-                        .position(|s| &s.name == name)
-                        .map(|i| (i, *coefficient))
-                        .ok_or_else(|| {
-                            self.error(
-                                Some(eq_value.span()),
-                                &eq_field,
-                                format!("unknown species `{name}`: list it under [species]"),
-                            )
-                        })
-                })
-                .collect()
+        let resolve = |side: &[(String, f64)]| {
+            resolve_side(side, species).map_err(|m| self.error(Some(eq_value.span()), &eq_field, m))
         };
         let reactants = resolve(&parsed.reactants)?;
         let products = resolve(&parsed.products)?;
-        if let Some((name, c)) = parsed
-            .reactants
-            .iter()
-            .chain(&parsed.products)
-            .find(|(_, c)| *c > limits::MAX_COEFFICIENT)
-        {
-            return Err(self.error(
-                Some(eq_value.span()),
-                &eq_field,
-                format!(
-                    "the coefficient {c:e} of `{name}` is above {} (common practice: chemical equations use small coefficients)",
-                    limits::MAX_COEFFICIENT
-                ),
-            ));
-        }
         Ok(ResolvedEquation {
             text: equation.to_string(),
             line,
@@ -813,8 +815,7 @@ impl<'a> Reader<'a> {
                 }
             }
         }
-        orders.retain(|&(i, order)| species[i].in_rate_laws() && order > 0.0);
-        Ok(orders)
+        Ok(mass_action_orders(&orders, species))
     }
 
     /// A quantity in internal units: a plain number times `plain_factor`, or a string with units
@@ -1170,17 +1171,4 @@ pub fn net_change(reactants: &[(usize, f64)], products: &[(usize, f64)]) -> Vec<
     net.retain(|&(_, c)| c != 0.0);
     net.sort_by_key(|&(i, _)| i);
     net
-}
-
-fn check_name(name: &str) -> Result<(), String> {
-    let first = name.chars().next().unwrap_or(' ');
-    if !(first.is_alphabetic() || first == '(' || first == '[') {
-        return Err(format!(
-            "`{name}` is not a species name: names start with a letter"
-        ));
-    }
-    if name.chars().any(|c| c.is_whitespace() || c == '=' || c == '<') {
-        return Err(format!("`{name}` may not contain spaces, `=` or `<`"));
-    }
-    Ok(())
 }

@@ -8,6 +8,7 @@
 
 use std::sync::Once;
 
+use plotters::coord::types::RangedCoordf64;
 use plotters::coord::Shift;
 use plotters::prelude::*;
 
@@ -15,6 +16,9 @@ use plotters::prelude::*;
 pub const SIZE: (u32, u32) = (1000, 620);
 const LEGEND_WIDTH: u32 = 210;
 const FONT: &str = "sans-serif";
+
+/// The plot panel: linear coordinates (log axes are transformed before drawing).
+type Plot<'a, DB> = ChartContext<'a, DB, Cartesian2d<RangedCoordf64, RangedCoordf64>>;
 
 /// Our palette: twelve hues that stay apart on screen, with lightness alternating between
 /// neighbours so that greyscale print keeps them apart too.
@@ -175,25 +179,35 @@ impl Figure {
             .y_label_formatter(&|y| tick_label(*y, y_log))
             .draw()
             .map_err(fail)?;
+        let frame = (x0, x1, y0, y1);
+        self.draw_guides(&mut chart, frame).map_err(fail)?;
+        for series in &self.series {
+            self.draw_curve(&mut chart, series).map_err(fail)?;
+        }
+        self.draw_legend(&legend_area).map_err(fail)?;
+        root.present().map_err(fail)
+    }
+
+    /// Shaded tolerance bands, dashed reference levels and labelled vertical marks, under the
+    /// curves.
+    fn draw_guides<DB: DrawingBackend>(
+        &self,
+        chart: &mut Plot<'_, DB>,
+        (x0, x1, y0, y1): (f64, f64, f64, f64),
+    ) -> Result<(), DrawingAreaErrorKind<DB::ErrorType>> {
         for band in &self.bands {
             let (colour, _, _) = style(band.style);
             let rect = Rectangle::new(
                 [(x0, self.ty(band.low)), (x1, self.ty(band.high))],
                 colour.mix(0.12).filled(),
             );
-            chart.draw_series(std::iter::once(rect)).map_err(fail)?;
+            chart.draw_series(std::iter::once(rect))?;
         }
         for level in &self.levels {
             let (colour, _, _) = style(level.style);
             let y = self.ty(level.y);
-            chart
-                .draw_series(DashedLineSeries::new(
-                    [(x0, y), (x1, y)],
-                    6,
-                    6,
-                    colour.mix(0.7).stroke_width(1),
-                ))
-                .map_err(fail)?;
+            let line = colour.mix(0.7).stroke_width(1);
+            chart.draw_series(DashedLineSeries::new([(x0, y), (x1, y)], 6, 6, line))?;
         }
         let grey = RGBColor(0x44, 0x44, 0x44);
         for (k, mark) in self.marks.iter().enumerate() {
@@ -201,69 +215,53 @@ impl Figure {
             if !(x0..=x1).contains(&x) {
                 continue;
             }
-            chart
-                .draw_series(DashedLineSeries::new(
-                    [(x, y0), (x, y1)],
-                    3,
-                    4,
-                    grey.stroke_width(1),
-                ))
-                .map_err(fail)?;
+            chart.draw_series(DashedLineSeries::new(
+                [(x, y0), (x, y1)],
+                3,
+                4,
+                grey.stroke_width(1),
+            ))?;
             let y_text = y1 - (y1 - y0) * (0.04 + 0.06 * k as f64);
-            let text = Text::new(
-                mark.label.clone(),
-                (x, y_text),
-                TextStyle::from((FONT, 13).into_font()).color(&grey),
-            );
-            chart.draw_series(std::iter::once(text)).map_err(fail)?;
+            let font = TextStyle::from((FONT, 13).into_font()).color(&grey);
+            chart.draw_series(std::iter::once(Text::new(mark.label.clone(), (x, y_text), font)))?;
         }
-        for series in &self.series {
-            let (colour, pattern, marker) = style(series.style);
-            let pattern = series.pattern.unwrap_or(pattern);
-            let points: Vec<(f64, f64)> = series
-                .points
-                .iter()
-                .filter(|(x, y)| {
-                    x.is_finite() && y.is_finite() && (!self.y_log || *y > 0.0) && (!self.x_log || *x > 0.0)
-                })
-                .map(|&(x, y)| (self.tx(x), self.ty(y)))
-                .collect();
-            let line = colour.stroke_width(2);
-            match pattern {
-                Pattern::Solid => chart
-                    .draw_series(LineSeries::new(points.clone(), line))
-                    .map(|_| ()),
-                Pattern::Dashed => chart
-                    .draw_series(DashedLineSeries::new(points.clone(), 9, 5, line))
-                    .map(|_| ()),
-                Pattern::Dotted => chart
-                    .draw_series(DashedLineSeries::new(points.clone(), 2, 4, line))
-                    .map(|_| ()),
-            }
-            .map_err(fail)?;
-            // Markers at a dozen evenly spaced points, so they show without crowding the line.
-            let every = (points.len() / 12).max(1);
-            let sparse = points.iter().copied().step_by(every);
-            match marker {
-                Marker::None => Ok(()),
-                Marker::Circle => chart
-                    .draw_series(sparse.map(|p| Circle::new(p, 4, colour.filled())))
-                    .map(|_| ()),
-                Marker::Triangle => chart
-                    .draw_series(sparse.map(|p| TriangleMarker::new(p, 5, colour.filled())))
-                    .map(|_| ()),
-                Marker::Square => {
-                    chart
-                        .draw_series(sparse.map(|p| {
-                            EmptyElement::at(p) + Rectangle::new([(-3, -3), (3, 3)], colour.filled())
-                        }))
-                        .map(|_| ())
-                }
-            }
-            .map_err(fail)?;
-        }
-        self.draw_legend(&legend_area).map_err(fail)?;
-        root.present().map_err(fail)
+        Ok(())
+    }
+
+    /// One series: its line in its pattern, and its marker at a dozen evenly spaced points so
+    /// markers show without crowding the line.
+    fn draw_curve<DB: DrawingBackend>(
+        &self,
+        chart: &mut Plot<'_, DB>,
+        series: &Series,
+    ) -> Result<(), DrawingAreaErrorKind<DB::ErrorType>> {
+        let (colour, pattern, marker) = style(series.style);
+        let pattern = series.pattern.unwrap_or(pattern);
+        let points: Vec<(f64, f64)> = series
+            .points
+            .iter()
+            .filter(|(x, y)| {
+                x.is_finite() && y.is_finite() && (!self.y_log || *y > 0.0) && (!self.x_log || *x > 0.0)
+            })
+            .map(|&(x, y)| (self.tx(x), self.ty(y)))
+            .collect();
+        let line = colour.stroke_width(2);
+        match pattern {
+            Pattern::Solid => chart.draw_series(LineSeries::new(points.clone(), line)),
+            Pattern::Dashed => chart.draw_series(DashedLineSeries::new(points.clone(), 9, 5, line)),
+            Pattern::Dotted => chart.draw_series(DashedLineSeries::new(points.clone(), 2, 4, line)),
+        }?;
+        let every = (points.len() / 12).max(1);
+        let sparse = points.iter().copied().step_by(every);
+        match marker {
+            Marker::None => return Ok(()),
+            Marker::Circle => chart.draw_series(sparse.map(|p| Circle::new(p, 4, colour.filled()))),
+            Marker::Triangle => chart.draw_series(sparse.map(|p| TriangleMarker::new(p, 5, colour.filled()))),
+            Marker::Square => chart.draw_series(
+                sparse.map(|p| EmptyElement::at(p) + Rectangle::new([(-3, -3), (3, 3)], colour.filled())),
+            ),
+        }?;
+        Ok(())
     }
 
     fn draw_legend<DB: DrawingBackend>(

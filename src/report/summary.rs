@@ -4,7 +4,7 @@ use serde::Serialize;
 use serde_json::Map;
 
 use crate::analysis::Settling;
-use crate::equilibrium::NoEquilibrium;
+use crate::equilibrium::{Equilibrium, NoEquilibrium};
 use crate::integrate::{Stats, StopReason};
 use crate::relaxation::Mode;
 use crate::run::RunResult;
@@ -143,6 +143,43 @@ pub fn stop_tag(result: &RunResult) -> &'static str {
     }
 }
 
+/// The conservation laws with their totals and how far the integration drifted from them.
+fn conservation(result: &RunResult, names: &[String]) -> Conservation {
+    let start = &result.solution.trajectory.states[0];
+    let laws = result
+        .stoichiometry
+        .conservation
+        .iter()
+        .zip(&result.drift)
+        .map(|(law, &drift)| Law {
+            expression: law.describe(names),
+            coefficients: law
+                .coefficients
+                .iter()
+                .map(|&(i, c)| (names[i].clone(), serde_json::json!(c)))
+                .collect(),
+            total: law.total(start),
+            max_relative_drift: drift,
+        })
+        .collect();
+    Conservation {
+        laws,
+        max_relative_drift: result.drift.iter().fold(0.0, |m: f64, &d| m.max(d)),
+    }
+}
+
+impl EquilibriumSolver {
+    fn of(e: &Equilibrium) -> EquilibriumSolver {
+        EquilibriumSolver {
+            method: "Newton on the dual of the free-energy minimisation (log-concentrations)",
+            iterations: e.iterations,
+            max_ln_k_residual: e.max_k_residual,
+            max_total_relative_residual: e.max_total_residual,
+            used_up: e.used_up.clone(),
+        }
+    }
+}
+
 pub fn stop_description(result: &RunResult) -> String {
     if let (Err(_), Some(t)) = (&result.solved, result.solution.equilibrium_at) {
         return format!(
@@ -240,22 +277,6 @@ impl Summary {
     pub fn from_result(result: &RunResult) -> Summary {
         let names = result.species_names();
         let trajectory = &result.solution.trajectory;
-        let laws = result
-            .stoichiometry
-            .conservation
-            .iter()
-            .zip(&result.drift)
-            .map(|(law, &drift)| Law {
-                expression: law.describe(&names),
-                coefficients: law
-                    .coefficients
-                    .iter()
-                    .map(|&(i, c)| (names[i].clone(), serde_json::json!(c)))
-                    .collect(),
-                total: law.total(&trajectory.states[0]),
-                max_relative_drift: drift,
-            })
-            .collect();
         Summary {
             tool: "kinequil".into(),
             version: env!("CARGO_PKG_VERSION").into(),
@@ -288,13 +309,7 @@ impl Summary {
                 Ok(_) => "solved",
                 Err(why) => why.tag(),
             },
-            equilibrium_solver: result.solved.as_ref().ok().map(|e| EquilibriumSolver {
-                method: "Newton on the dual of the free-energy minimisation (log-concentrations)",
-                iterations: e.iterations,
-                max_ln_k_residual: e.max_k_residual,
-                max_total_relative_residual: e.max_total_residual,
-                used_up: e.used_up.clone(),
-            }),
+            equilibrium_solver: result.solved.as_ref().ok().map(EquilibriumSolver::of),
             integrated_vs_solved_max_relative_difference: result.disagreement,
             routes_agree: result.disagreement.map(|_| !result.disagrees),
             relaxation: result.relaxation.clone().unwrap_or_default(),
@@ -321,10 +336,7 @@ impl Summary {
                 tolerance_kj_per_mol: result.audit.tolerance_kj_per_mol,
                 findings: result.audit.brief(),
             },
-            conservation: Conservation {
-                laws,
-                max_relative_drift: result.drift.iter().fold(0.0, |m: f64, &d| m.max(d)),
-            },
+            conservation: conservation(result, &names),
             solver: Solver {
                 stats: result.solution.stats.clone(),
                 rtol: result.settings.rtol,

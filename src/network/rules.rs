@@ -1,0 +1,58 @@
+//! The rules every network obeys however it was written, file or builder: each rule is one
+//! function that returns the message, and the caller adds the line and field it knows.
+
+use super::{limits, Species};
+
+/// A species name: starts with a letter (or a bracket, for `[Cu(NH3)4]2+`-style names) and
+/// holds nothing the equation syntax uses.
+pub(super) fn check_name(name: &str) -> Result<(), String> {
+    let first = name.chars().next().unwrap_or(' ');
+    if !(first.is_alphabetic() || first == '(' || first == '[') {
+        return Err(format!(
+            "`{name}` is not a species name: names start with a letter"
+        ));
+    }
+    if name.chars().any(|c| c.is_whitespace() || c == '=' || c == '<') {
+        return Err(format!("`{name}` may not contain spaces, `=` or `<`"));
+    }
+    Ok(())
+}
+
+/// One side of a parsed equation as (species index, coefficient), every name known and every
+/// coefficient within the limit.
+pub(super) fn resolve_side(side: &[(String, f64)], species: &[Species]) -> Result<Vec<(usize, f64)>, String> {
+    side.iter()
+        .map(|(name, coefficient)| {
+            if *coefficient > limits::MAX_COEFFICIENT {
+                return Err(format!(
+                    "the coefficient {coefficient:e} of `{name}` is above {} (common practice: chemical equations use small coefficients)",
+                    limits::MAX_COEFFICIENT
+                ));
+            }
+            species
+                .iter()
+                .position(|s| &s.name == name)
+                .map(|i| (i, *coefficient))
+                .ok_or_else(|| format!("unknown species `{name}`: declare it among the species"))
+        })
+        .collect()
+}
+
+/// A reversible step needs kr or K; a one-way step takes neither.
+pub(super) fn check_directions(reversible: bool, reverse_given: bool) -> Result<(), &'static str> {
+    match (reversible, reverse_given) {
+        (true, false) => {
+            Err("a reversible step (`<=>`) needs either kr or the equilibrium constant K (or Kp)")
+        }
+        (false, true) => Err("a one-way step (`=>`) takes only kf; write `<=>` for a reversible step"),
+        _ => Ok(()),
+    }
+}
+
+/// The mass-action orders of one side: its coefficients, pure phases (activity 1) left out.
+pub(super) fn mass_action_orders(side: &[(usize, f64)], species: &[Species]) -> Vec<(usize, f64)> {
+    side.iter()
+        .copied()
+        .filter(|&(i, order)| species[i].in_rate_laws() && order > 0.0)
+        .collect()
+}
