@@ -39,6 +39,7 @@
 mod analysis;
 mod audit;
 mod constants;
+mod ensemble;
 mod equilibrium;
 mod error;
 mod format;
@@ -50,6 +51,9 @@ mod relaxation;
 mod report;
 mod run;
 mod stoich;
+mod study;
+mod sweep;
+mod uncertainty;
 mod units;
 
 /// The command line behind the `kinequil` binary; not part of the library's surface.

@@ -221,26 +221,62 @@ impl Network {
     /// what the file says it is; scaling K of a step with an explicit kr changes only the
     /// reference K.
     pub fn with_factor(&self, step: usize, constant: Constant, factor: f64) -> Result<Network, InputError> {
+        self.with_factors(&[(step, constant, factor)])
+    }
+
+    /// [`with_factor`](Self::with_factor) for several constants at once, evaluated once.
+    pub fn with_factors(&self, factors: &[(usize, Constant, f64)]) -> Result<Network, InputError> {
         let mut network = self.clone();
-        let r = network.reactions.get_mut(step).ok_or_else(|| InputError {
-            file: self.source.clone(),
-            line: None,
-            field: format!("reaction[{}]", step + 1),
-            message: "no such step".into(),
-        })?;
-        match (constant, &r.kr_spec, &r.k_spec) {
-            (Constant::Kf, _, _) => r.kf_spec = r.kf_spec.times(factor),
-            (Constant::Kr, Some(kr), _) => r.kr_spec = Some(kr.times(factor)),
-            (Constant::Kr, None, Some(k)) => r.k_spec = Some(k.times(1.0 / factor)),
-            (Constant::K, _, Some(k)) => r.k_spec = Some(k.times(factor)),
-            _ => {
+        for &(step, constant, factor) in factors {
+            let r = network.reactions.get_mut(step).ok_or_else(|| InputError {
+                file: self.source.clone(),
+                line: None,
+                field: format!("reaction[{}]", step + 1),
+                message: "no such step".into(),
+            })?;
+            match (constant, &r.kr_spec, &r.k_spec) {
+                (Constant::Kf, _, _) => r.kf_spec = r.kf_spec.times(factor),
+                (Constant::Kr, Some(kr), _) => r.kr_spec = Some(kr.times(factor)),
+                (Constant::Kr, None, Some(k)) => r.k_spec = Some(k.times(1.0 / factor)),
+                (Constant::K, _, Some(k)) => r.k_spec = Some(k.times(factor)),
+                _ => {
+                    return Err(InputError {
+                        file: self.source.clone(),
+                        line: Some(r.line),
+                        field: format!("reaction[{}]", step + 1),
+                        message: "the step has no such constant to scale".into(),
+                    })
+                }
+            }
+        }
+        network.evaluate()?;
+        Ok(network)
+    }
+
+    /// The same network with species `species` (0-based) starting at `concentration` mol/L.
+    pub fn with_initial(&self, species: usize, concentration: f64) -> Result<Network, InputError> {
+        self.with_initials(&[(species, concentration)])
+    }
+
+    /// [`with_initial`](Self::with_initial) for several species at once, evaluated once.
+    pub fn with_initials(&self, amounts: &[(usize, f64)]) -> Result<Network, InputError> {
+        let mut network = self.clone();
+        for &(species, concentration) in amounts {
+            let s = network.species.get_mut(species).ok_or_else(|| InputError {
+                file: self.source.clone(),
+                line: None,
+                field: "species".into(),
+                message: format!("no species number {}", species + 1),
+            })?;
+            if !(concentration.is_finite() && concentration >= 0.0) {
                 return Err(InputError {
                     file: self.source.clone(),
-                    line: Some(r.line),
-                    field: format!("reaction[{}]", step + 1),
-                    message: "the step has no such constant to scale".into(),
-                })
+                    line: s.initial_origin.line,
+                    field: s.initial_origin.field.clone(),
+                    message: format!("{concentration} is not a concentration ≥ 0"),
+                });
             }
+            s.initial_spec = AmountGiven::Concentration(concentration);
         }
         network.evaluate()?;
         Ok(network)

@@ -84,6 +84,8 @@ pub struct Species {
     pub gibbs_formation: Option<f64>,
     /// Standard enthalpy of formation, kJ/mol, for the audit.
     pub enthalpy_formation: Option<f64>,
+    /// Relative standard deviation of the initial amount, for uncertainty studies.
+    pub initial_uncertainty: Option<f64>,
 }
 
 impl Species {
@@ -101,6 +103,7 @@ impl Species {
             charge: 0.0,
             gibbs_formation: None,
             enthalpy_formation: None,
+            initial_uncertainty: None,
         }
     }
 
@@ -173,6 +176,25 @@ pub struct Reaction {
     pub forward_orders: Vec<(usize, f64)>,
     /// (species index, order) of each factor of the reverse rate; empty for a one-way step.
     pub reverse_orders: Vec<(usize, f64)>,
+    /// How uncertain the constants are, for uncertainty studies (none by default).
+    pub uncertainty: Spread,
+}
+
+/// The uncertainty of a step's constants as given.
+#[derive(Debug, Clone, Default, PartialEq)]
+pub struct Spread {
+    pub kf: Option<UncertainValue>,
+    pub kr: Option<UncertainValue>,
+    pub k: Option<UncertainValue>,
+}
+
+/// One constant's uncertainty.
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub enum UncertainValue {
+    /// Log-normal: 95 % of values between value/f and value·f.
+    Factor(f64),
+    /// The standard deviation of the step's standard Gibbs energy, J/mol (K log-normal).
+    GibbsSd(f64),
 }
 
 /// A validated reaction network.
@@ -231,6 +253,7 @@ impl Reaction {
             kr_origin: Origin::default(),
             k_spec: None,
             gibbs: None,
+            uncertainty: Spread::default(),
         }
     }
 
@@ -551,6 +574,7 @@ impl<'a> Reader<'a> {
             "dG",
             "orders",
             "reverse_orders",
+            "uncertainty",
         ];
         for (key, _) in table.iter() {
             if !known.contains(&key.get_ref().as_ref()) {
@@ -601,6 +625,9 @@ impl<'a> Reader<'a> {
         step.kr_origin = kr_origin;
         step.k_spec = k_spec;
         step.gibbs = gibbs;
+        if let Some(v) = table.get("uncertainty") {
+            step.uncertainty = self.uncertainty(v, &format!("{field}.uncertainty"), &step)?;
+        }
         Ok(step)
     }
 
@@ -870,6 +897,17 @@ impl<'a> Reader<'a> {
                 item.formula = Some(parse_formula(text).map_err(|m| self.error(Some(v.span()), sub, m))?);
             }
             "charge" => item.charge = self.number(v, sub)?,
+            "uncertainty" => {
+                let relative = self.number(v, sub)?;
+                if !(0.0..1.0).contains(&relative) {
+                    return Err(self.error(
+                        Some(v.span()),
+                        sub,
+                        "a relative standard deviation from 0 to below 1 (0.05 for 5 %)",
+                    ));
+                }
+                item.initial_uncertainty = Some(relative);
+            }
             "dGf" => item.gibbs_formation = Some(self.energy_kj(v, sub)?),
             "dHf" => item.enthalpy_formation = Some(self.energy_kj(v, sub)?),
             "phase" => {
@@ -893,12 +931,66 @@ impl<'a> Reader<'a> {
                     Some(prop_span.clone()),
                     sub,
                     format!(
-                    "unknown property `{other}`; expected initial, phase, atol, formula, charge, dGf or dHf"
+                    "unknown property `{other}`; expected initial, phase, atol, formula, charge, dGf, dHf or uncertainty"
                 ),
                 ))
             }
         }
         Ok(false)
+    }
+
+    /// `uncertainty = { kf = 2.0, K = "1.5 kJ/mol" }`: factors (95 % of values within value/f
+    /// and value·f), or for K also the standard deviation of the step's ΔG°.
+    fn uncertainty(&self, value: &Value<'_>, field: &str, step: &Reaction) -> Result<Spread, InputError> {
+        let DeValue::Table(parts) = value.get_ref() else {
+            return Err(self.error(
+                Some(value.span()),
+                field,
+                "must be a table such as { kf = 2.0, K = \"1.5 kJ/mol\" }",
+            ));
+        };
+        let mut spread = Spread::default();
+        for (key, v) in parts.iter() {
+            let sub = format!("{field}.{}", key.get_ref());
+            let has = match key.get_ref().as_ref() {
+                "kf" => true,
+                "kr" => step.kr_spec.is_some(),
+                "K" => step.k_spec.is_some(),
+                _ => {
+                    return Err(self.error(
+                        Some(key.span()),
+                        &sub,
+                        "unknown key; uncertainty takes kf, kr and K",
+                    ));
+                }
+            };
+            if !has {
+                return Err(self.error(Some(key.span()), &sub, "the step does not give this constant"));
+            }
+            let is_energy = matches!(v.get_ref(), DeValue::String(_));
+            let given = if key.get_ref().as_ref() == "K" && is_energy {
+                UncertainValue::GibbsSd(self.quantity(v, &sub, Dimension::molar_energy(), 1000.0)?)
+            } else {
+                UncertainValue::Factor(self.number(v, &sub)?)
+            };
+            let fine = match given {
+                UncertainValue::Factor(f) => (1.0..=1000.0).contains(&f),
+                UncertainValue::GibbsSd(sd) => (0.0..=100e3).contains(&sd),
+            };
+            if !fine {
+                return Err(self.error(
+                    Some(v.span()),
+                    &sub,
+                    "a factor from 1 to 1000 (2 for \"within a factor of 2\"), or for K an energy up to 100 kJ/mol",
+                ));
+            }
+            match key.get_ref().as_ref() {
+                "kf" => spread.kf = Some(given),
+                "kr" => spread.kr = Some(given),
+                _ => spread.k = Some(given),
+            }
+        }
+        Ok(spread)
     }
 
     /// An energy per mole in kJ/mol (plain numbers are kJ/mol).

@@ -20,7 +20,7 @@ pub struct ReportInputs<'a> {
     pub files: &'a [String],
 }
 
-const STYLE: &str = r#"
+pub const STYLE: &str = r#"
 body { font-family: "DejaVu Sans", Helvetica, Arial, sans-serif; color: #1a1a1a; max-width: 62em; margin: 2em auto; padding: 0 1em; line-height: 1.4; }
 h1 { font-size: 1.6em; margin-bottom: 0.2em; }
 h2 { font-size: 1.2em; border-bottom: 2px solid #1b4f9c; padding-bottom: 0.15em; margin-top: 1.6em; }

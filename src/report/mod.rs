@@ -8,6 +8,7 @@ pub mod chart;
 pub mod equilibrium_table;
 pub mod figure;
 pub mod html;
+pub mod study;
 pub mod summary;
 pub mod table;
 pub mod terminal;
@@ -281,7 +282,9 @@ pub fn refuse_foreign(dir: &Path) -> Result<(), Error> {
     let foreign: Vec<String> = entries
         .filter_map(|e| e.ok())
         .map(|e| e.file_name().to_string_lossy().into_owned())
-        .filter(|n| n != RUN_MARKER && !RUN_FILES.contains(&n.as_str()))
+        .filter(|n| {
+            n != RUN_MARKER && !RUN_FILES.contains(&n.as_str()) && !study::STUDY_FILES.contains(&n.as_str())
+        })
         .collect();
     if foreign.is_empty() {
         Ok(())

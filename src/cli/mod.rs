@@ -4,6 +4,8 @@ use std::path::PathBuf;
 
 use clap::{Parser, Subcommand};
 
+mod studies;
+
 use crate::audit::{self, Adjust};
 use crate::equilibrium;
 use crate::error::Error;
@@ -36,6 +38,14 @@ enum Command {
     /// charge balance, units and limits; propose a minimal correction. Exit 0 when consistent,
     /// 1 when not, 2 for bad input.
     Check(CheckArgs),
+    /// Run the network over a grid of conditions (temperature, initial amounts, multipliers on
+    /// constants): time to equilibrium and conversion at every point, with charts.
+    Sweep(studies::SweepArgs),
+    /// Draw an ensemble from the uncertainties the file gives and report the spread of the time
+    /// to equilibrium and of the equilibrium composition.
+    Uncertainty(studies::UncertaintyArgs),
+    /// Join the shard folders of one sweep or ensemble into the result of one whole run.
+    Merge(studies::MergeArgs),
 }
 
 #[derive(Debug, clap::Args)]
@@ -168,6 +178,9 @@ fn execute(cli: Cli) -> Result<Outcome, Error> {
         Command::Run(args) => run_command(args).map(Outcome::from),
         Command::Equilibrium(args) => equilibrium_command(args),
         Command::Check(args) => check_command(args),
+        Command::Sweep(args) => studies::sweep_command(args).map(Outcome::from),
+        Command::Uncertainty(args) => studies::uncertainty_command(args).map(Outcome::from),
+        Command::Merge(args) => studies::merge_command(args).map(Outcome::from),
     }
 }
 
