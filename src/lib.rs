@@ -13,6 +13,9 @@
 //! - **The equilibrium alone**: [`solve_equilibrium`]; **the consistency audit**: [`audit()`].
 //! - **The engine underneath**, for driving the integration yourself: [`RateModel`] (rates and
 //!   analytic Jacobian), [`integrate`] with [`IntegrationOptions`], [`relaxation_modes`].
+//! - **Studies** (many members of one network, in-process on every core): [`Axis`], [`grid`]
+//!   and [`at_point`] for sweeps, [`Sampler`] for uncertainty ensembles, [`Outcome::of`] for
+//!   one member, [`tabulate`] for a [`StudyTable`], [`merge_shards`] and [`render_study`].
 //! - **Reports**: [`render_run`] gives every output file as bytes, [`write_run_folder`] writes
 //!   them whole or not at all; [`Summary`], [`terminal_text`], [`audit_text`], [`EquilibriumTable`] for text.
 //!
@@ -62,6 +65,7 @@ pub mod cli;
 
 pub use audit::{audit, corrected_network_text, Adjust, Audit, DEFAULT_TOL_KJ};
 pub use constants::GAS_CONSTANT;
+pub use ensemble::{evaluate as evaluate_members, Outcome};
 pub use equilibrium::{extents, solve as solve_equilibrium, Equilibrium, NoEquilibrium};
 pub use error::{Error, InputError, IntegrationError};
 pub use format::number as format_number;
@@ -75,6 +79,7 @@ pub use network::{
     Reaction, Species,
 };
 pub use relaxation::{modes as relaxation_modes, Mode};
+pub use report::study::render_study;
 pub use report::summary::Summary;
 pub use report::{
     audit_table::render as audit_text, chart::ChartOptions, chart::TimeAxis,
@@ -83,6 +88,11 @@ pub use report::{
 };
 pub use run::{run, RunResult, RunSettings};
 pub use stoich::{ConservationLaw, Stoichiometry};
+pub use study::{
+    merge as merge_shards, tabulate, time_header, Study, Table as StudyTable, UncertaintySummary,
+};
+pub use sweep::{at_point, grid, Axis, Varied};
+pub use uncertainty::Sampler;
 pub use units::parse_quantity;
 
 /// The cautions every report carries.

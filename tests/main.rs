@@ -17,3 +17,4 @@ mod model;
 mod report;
 mod robertson;
 mod robustness;
+mod studies;
