@@ -53,6 +53,7 @@ mod network;
 mod relaxation;
 mod report;
 mod run;
+mod sensitivity;
 mod stoich;
 mod study;
 mod sweep;
@@ -87,6 +88,10 @@ pub use report::{
     write_all as write_run_folder, RUN_MARKER,
 };
 pub use run::{run, RunResult, RunSettings};
+pub use sensitivity::{
+    constants as sensitivity_constants, differences_of_the_solve, equilibrium_by_step, sensitivities,
+    EquilibriumRoute, Sensitivity,
+};
 pub use stoich::{ConservationLaw, Stoichiometry};
 pub use study::{
     merge as merge_shards, tabulate, time_header, Study, Table as StudyTable, UncertaintySummary,

@@ -297,3 +297,118 @@ fn bad_study_options_are_refused_with_the_option_named() {
         assert!(err.contains(says), "{args:?}: {err}");
     }
 }
+
+/// `sensitivity.json` of a network written to a temporary folder.
+fn sensitivity_of(text: &str) -> serde_json::Value {
+    let dir = tempfile::tempdir().unwrap();
+    let case = write_case(dir.path(), "case.toml", text);
+    let out = dir.path().join("s");
+    ok(&["sensitivity", &case, "--out", out.to_str().unwrap()]);
+    assert!(out.join("sensitivity.svg").exists() && out.join("sensitivity.png").exists());
+    json(&out.join("sensitivity.json"))
+}
+
+/// d ln t / d ln k of `name` at every tolerance.
+fn time_sensitivity(report: &serde_json::Value, name: &str) -> Vec<f64> {
+    let entry = report["constants"]
+        .as_array()
+        .unwrap()
+        .iter()
+        .find(|c| c["constant"] == name)
+        .unwrap_or_else(|| panic!("{name} missing"));
+    entry["time_to_equilibrium"]
+        .as_array()
+        .unwrap()
+        .iter()
+        .map(|t| t["d_ln_t_d_ln_k"].as_f64().unwrap())
+        .collect()
+}
+
+// Probes are integrated at rtol 1e-9, so crossing times hold to about 1e-6 relative; the central
+// difference divides by 2h = 0.02 and its truncation error is about h²/6 ≈ 2e-5: 1e-3 absolute
+// leaves a wide margin and still tells −1 from −kf/(kf + kr).
+const SENSITIVITY_TOL: f64 = 1e-3;
+
+#[test]
+fn hold_time_sensitivities_match_first_order_closed_forms() {
+    // K given: kr = kf/K moves with kf, t = ln(1/tol)/(kf (1 + 1/K)), so d ln t/d ln kf = −1 and
+    // d ln t/d ln K = 1/(K + 1).
+    let with_k = sensitivity_of(
+        "[species]\nA = 1.0\nB = 0.0\n\n[[reaction]]\nequation = \"A <=> B\"\nkf = 2e-3\nK = 2.0\n",
+    );
+    assert_eq!(
+        with_k["constants"][0]["constant"], "kf[1]",
+        "the dominant constant ranks first"
+    );
+    for s in time_sensitivity(&with_k, "kf[1]") {
+        assert!((s + 1.0).abs() < SENSITIVITY_TOL, "{s}");
+    }
+    for s in time_sensitivity(&with_k, "K[1]") {
+        assert!((s - 1.0 / 3.0).abs() < SENSITIVITY_TOL, "{s}");
+    }
+    // kr given: t = ln(1/tol)/(kf + kr), so d ln t/d ln kf = −kf/(kf + kr) = −2/3 and −1/3 for kr.
+    let with_kr = sensitivity_of(
+        "[species]\nA = 1.0\nB = 0.0\n\n[[reaction]]\nequation = \"A <=> B\"\nkf = 2e-3\nkr = 1e-3\n",
+    );
+    for s in time_sensitivity(&with_kr, "kf[1]") {
+        assert!((s + 2.0 / 3.0).abs() < SENSITIVITY_TOL, "{s}");
+    }
+    for s in time_sensitivity(&with_kr, "kr[1]") {
+        assert!((s + 1.0 / 3.0).abs() < SENSITIVITY_TOL, "{s}");
+    }
+}
+
+#[test]
+fn equilibrium_sensitivities_match_the_closed_form_quadratic() {
+    // A + B <=> C with totals a = A + C, b = B + C: x = [C]eq solves K(a − x)(b − x) = x, so
+    // dx/dK = (a − x)(b − x)/(1 + K(a + b − 2x)) by implicit differentiation.
+    let (kf, kr) = (3.0, 0.2);
+    let text = format!("[species]\nA = 0.8\nB = 0.5\nC = 0.1\n\n[[reaction]]\nequation = \"A + B <=> C\"\nkf = {kf}\nkr = {kr}\n");
+    let report = sensitivity_of(&text);
+    let k: f64 = kf / kr;
+    let (a, b): (f64, f64) = (0.9, 0.6);
+    let p = k * (a + b) + 1.0;
+    let x = (p - (p * p - 4.0 * k * k * a * b).sqrt()) / (2.0 * k);
+    let dx = (a - x) * (b - x) / (1.0 + k * (a + b - 2.0 * x));
+    let expected = [-k * dx / (a - x), -k * dx / (b - x), k * dx / x];
+    // kf of a step given with kr raises K = kf/kr: its d ln c_eq/d ln kf is d ln c_eq/d ln K.
+    let entry = report["constants"]
+        .as_array()
+        .unwrap()
+        .iter()
+        .find(|c| c["constant"] == "kf[1]")
+        .unwrap();
+    for (name, want) in ["A", "B", "C"].iter().zip(expected) {
+        let got = entry["equilibrium"][name].as_f64().unwrap();
+        // Analytic at a state solved to 1e-13; the closed form's cancellation allows 1e-9.
+        assert!(
+            (got - want).abs() < 1e-9 * want.abs().max(1.0),
+            "{name}: {got} vs {want}"
+        );
+    }
+    let kr_entry = report["constants"]
+        .as_array()
+        .unwrap()
+        .iter()
+        .find(|c| c["constant"] == "kr[1]")
+        .unwrap();
+    assert!((kr_entry["equilibrium"]["C"].as_f64().unwrap() + expected[2]).abs() < 1e-9);
+}
+
+#[test]
+fn analytic_equilibrium_sensitivities_agree_with_differences_of_the_solve() {
+    // The independent route: solve again at K·e^(±0.001); central-difference truncation is
+    // about h²/6 ≈ 2e-7 of the third derivative, so 1e-5 absolute.
+    let demo =
+        kinequil::Network::from_file(&Path::new(env!("CARGO_MANIFEST_DIR")).join("cases/demo.toml")).unwrap();
+    let (analytic, route) = kinequil::equilibrium_by_step(&demo).unwrap();
+    assert_eq!(route, kinequil::EquilibriumRoute::Analytic);
+    let solved = kinequil::solve_equilibrium(&demo, &kinequil::Stoichiometry::new(&demo)).unwrap();
+    let differences = kinequil::differences_of_the_solve(&demo, &solved.concentrations);
+    for (j, (a, d)) in analytic.iter().zip(&differences).enumerate() {
+        let (a, d) = (a.as_ref().unwrap(), d.as_ref().unwrap());
+        for (i, (x, y)) in a.iter().zip(d).enumerate() {
+            assert!((x - y).abs() < 1e-5, "step {j} species {i}: {x} vs {y}");
+        }
+    }
+}

@@ -44,6 +44,9 @@ enum Command {
     /// Draw an ensemble from the uncertainties the file gives and report the spread of the time
     /// to equilibrium and of the equilibrium composition.
     Uncertainty(studies::UncertaintyArgs),
+    /// Rank the constants by how much they move the hold time (d ln t / d ln k) and the
+    /// equilibrium composition (d ln c_eq / d ln k): which constant to measure better.
+    Sensitivity(studies::SensitivityArgs),
     /// Join the shard folders of one sweep or ensemble into the result of one whole run.
     Merge(studies::MergeArgs),
 }
@@ -180,6 +183,7 @@ fn execute(cli: Cli) -> Result<Outcome, Error> {
         Command::Check(args) => check_command(args),
         Command::Sweep(args) => studies::sweep_command(args).map(Outcome::from),
         Command::Uncertainty(args) => studies::uncertainty_command(args).map(Outcome::from),
+        Command::Sensitivity(args) => studies::sensitivity_command(args).map(Outcome::from),
         Command::Merge(args) => studies::merge_command(args).map(Outcome::from),
     }
 }

@@ -69,6 +69,12 @@ pub(super) struct UncertaintyArgs {
 }
 
 #[derive(Debug, clap::Args)]
+pub(super) struct SensitivityArgs {
+    #[command(flatten)]
+    pub shared: Shared,
+}
+
+#[derive(Debug, clap::Args)]
 pub(super) struct MergeArgs {
     /// The shard folders of one study.
     #[arg(required = true)]
@@ -283,4 +289,25 @@ pub(super) fn merge_command(args: MergeArgs) -> Result<String, Error> {
     let files = study_files::render_study(&study, &table)?;
     let written = report::write_all(&args.out, &files, args.force)?;
     Ok(study_files::terminal_text(&study, &table, &written))
+}
+
+pub(super) fn sensitivity_command(args: SensitivityArgs) -> Result<String, Error> {
+    if args.shared.shard.is_some() {
+        return Err(option(
+            "--shard",
+            "a sensitivity study is small enough for one machine; run it whole",
+        ));
+    }
+    let prepared = prepare(&args.shared, "sensitivity", |n| {
+        Ok(2 * crate::sensitivity::constants(n).len())
+    })?;
+    let network = &prepared.network;
+    let tolerances = &prepared.study.tolerances;
+    let (found, route) = crate::sensitivity::sensitivities(network, tolerances, prepared.threads)
+        .map_err(|m| option("(network)", &format!("no sensitivities: {m}")))?;
+    let files = report::sensitivity::render_sensitivity(network, tolerances, &found, route)?;
+    let written = report::write_all(&prepared.out, &files, args.shared.force)?;
+    Ok(report::sensitivity::terminal_text(
+        network, tolerances, &found, &written,
+    ))
 }

@@ -254,6 +254,7 @@ fn concentrations(result: &RunResult, frame: &Frame) -> Figure {
         bands,
         marks: Vec::new(),
         notes,
+        ..Figure::default()
     }
 }
 
@@ -340,6 +341,7 @@ fn approach(result: &RunResult, frame: &Frame) -> Option<Figure> {
         bands: Vec::new(),
         marks,
         notes,
+        ..Figure::default()
     })
 }
 
@@ -423,6 +425,7 @@ fn rates(result: &RunResult, frame: &Frame, rates: &Rates) -> Figure {
         bands: Vec::new(),
         marks: Vec::new(),
         notes,
+        ..Figure::default()
     }
 }
 
@@ -476,6 +479,7 @@ fn quotients(result: &RunResult, frame: &Frame, rates: &Rates) -> Option<Figure>
         bands: Vec::new(),
         marks: Vec::new(),
         notes,
+        ..Figure::default()
     })
 }
 

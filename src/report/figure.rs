@@ -94,7 +94,15 @@ pub struct Mark {
     pub label: String,
 }
 
+/// A filled box in data coordinates (a bar of a bar chart).
 #[derive(Debug, Clone)]
+pub struct Block {
+    pub x: (f64, f64),
+    pub y: (f64, f64),
+    pub style: usize,
+}
+
+#[derive(Debug, Clone, Default)]
 pub struct Figure {
     pub title: String,
     pub x_label: String,
@@ -110,6 +118,10 @@ pub struct Figure {
     pub marks: Vec<Mark>,
     /// Extra legend entries under the series: a short explanation line each.
     pub notes: Vec<String>,
+    /// Filled boxes, drawn over the guides and under the curves.
+    pub blocks: Vec<Block>,
+    /// Names for the whole-number positions of the y axis (a category axis), when not empty.
+    pub y_categories: Vec<String>,
 }
 
 static FONT_ONCE: Once = Once::new();
@@ -175,12 +187,28 @@ impl Figure {
             .label_style((FONT, 14))
             .light_line_style(RGBColor(0xee, 0xee, 0xee))
             .bold_line_style(RGBColor(0xd0, 0xd0, 0xd0))
-            .x_label_formatter(&|x| tick_label(*x, x_log))
-            .y_label_formatter(&|y| tick_label(*y, y_log))
+            .x_label_formatter(&|x| tick_label(*x, x_log, x1 - x0))
+            .y_label_formatter(&|y| match self.y_categories.is_empty() {
+                true => tick_label(*y, y_log, y1 - y0),
+                false => category(&self.y_categories, *y),
+            })
             .draw()
             .map_err(fail)?;
         let frame = (x0, x1, y0, y1);
         self.draw_guides(&mut chart, frame).map_err(fail)?;
+        for block in &self.blocks {
+            let (colour, _, _) = style(block.style);
+            let corners = [
+                (self.tx(block.x.0), self.ty(block.y.0)),
+                (self.tx(block.x.1), self.ty(block.y.1)),
+            ];
+            chart
+                .draw_series(std::iter::once(Rectangle::new(
+                    corners,
+                    colour.mix(0.85).filled(),
+                )))
+                .map_err(fail)?;
+        }
         for series in &self.series {
             self.draw_curve(&mut chart, series).map_err(fail)?;
         }
@@ -323,8 +351,19 @@ fn wrap(text: &str, width: usize) -> Vec<String> {
 }
 
 /// Tick label: on a log axis only whole decades are labelled, with their plain value.
-fn tick_label(v: f64, log: bool) -> String {
+/// The category at a whole-number position of a category axis; nothing between positions.
+fn category(names: &[String], v: f64) -> String {
+    let k = v.round();
+    if (v - k).abs() > 1e-6 || k < 0.0 {
+        return String::new();
+    }
+    names.get(k as usize).cloned().unwrap_or_default()
+}
+
+/// A tick label; on a linear axis, rounding noise at zero (−2.2e-16) reads as 0.
+fn tick_label(v: f64, log: bool, span: f64) -> String {
     if !log {
+        let v = if v.abs() < 1e-9 * span.abs() { 0.0 } else { v };
         return crate::format::trim_number(v);
     }
     if (v - v.round()).abs() > 1e-6 {

@@ -8,6 +8,7 @@ pub mod chart;
 pub mod equilibrium_table;
 pub mod figure;
 pub mod html;
+pub mod sensitivity;
 pub mod study;
 pub mod summary;
 pub mod table;
@@ -283,7 +284,10 @@ pub fn refuse_foreign(dir: &Path) -> Result<(), Error> {
         .filter_map(|e| e.ok())
         .map(|e| e.file_name().to_string_lossy().into_owned())
         .filter(|n| {
-            n != RUN_MARKER && !RUN_FILES.contains(&n.as_str()) && !study::STUDY_FILES.contains(&n.as_str())
+            n != RUN_MARKER
+                && !RUN_FILES.contains(&n.as_str())
+                && !study::STUDY_FILES.contains(&n.as_str())
+                && !sensitivity::SENSITIVITY_FILES.contains(&n.as_str())
         })
         .collect();
     if foreign.is_empty() {

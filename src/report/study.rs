@@ -273,6 +273,7 @@ fn figure(
         bands: Vec::new(),
         marks: Vec::new(),
         notes: Vec::new(),
+        ..Figure::default()
     }
 }
 
