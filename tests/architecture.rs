@@ -123,7 +123,7 @@ fn the_library_does_not_depend_on_the_command_line_parser() {
     source_files(&src, &mut files);
     for file in files
         .iter()
-        .filter(|f| !f.ends_with("cli.rs") && !f.ends_with("main.rs"))
+        .filter(|f| !f.components().any(|c| c.as_os_str() == "cli") && !f.ends_with("main.rs"))
     {
         let text = std::fs::read_to_string(file).unwrap();
         assert!(

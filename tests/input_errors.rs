@@ -7,6 +7,27 @@ use kinequil::Network;
 /// (case, network text, expected line, expected field, a phrase the message must contain)
 const CASES: &[(&str, &str, Option<usize>, &str, &str)] = &[
     (
+        "uncertainty factor below 1",
+        "[species]\nA = 1.0\nB = 0.0\n\n[[reaction]]\nequation = \"A <=> B\"\nkf = 1.0\nK = 2.0\nuncertainty = { kf = 0.5 }\n",
+        Some(9),
+        "reaction[1].uncertainty.kf",
+        "a factor from 1 to 1000",
+    ),
+    (
+        "uncertainty on a constant the step does not give",
+        "[species]\nA = 1.0\nB = 0.0\n\n[[reaction]]\nequation = \"A <=> B\"\nkf = 1.0\nkr = 2.0\nuncertainty = { K = \"1 kJ/mol\" }\n",
+        Some(9),
+        "reaction[1].uncertainty.K",
+        "does not give this constant",
+    ),
+    (
+        "relative uncertainty of an amount above 1",
+        "[species]\nA = { initial = 1.0, uncertainty = 1.5 }\nB = 0.0\n",
+        Some(2),
+        "species.A.uncertainty",
+        "relative standard deviation",
+    ),
+    (
         "unknown species",
         "[species]\nA = 1.0\n\n[[reaction]]\nequation = \"A <=> Q\"\nkf = 1.0\nkr = 1.0\n",
         Some(5),

@@ -5,10 +5,10 @@ use std::path::PathBuf;
 
 use crate::error::InputError;
 
-use super::rules::{check_directions, check_name, resolve_side};
+use super::rules::{check_directions, check_name, check_spread, resolve_side};
 use super::{
-    parse_equation, AmountGiven, KForm, KGiven, Network, Origin, Phase, RateGiven, Reaction, Species,
-    DEFAULT_TEMPERATURE_K,
+    parse_equation, AmountGiven, KForm, KGiven, Network, Origin, Phase, RateGiven, Reaction, Species, Spread,
+    UncertainValue, DEFAULT_TEMPERATURE_K,
 };
 
 /// Builds a [`Network`] step by step; constants are in mol/L and s, the temperature in K.
@@ -43,6 +43,7 @@ struct Pending {
     kf: f64,
     kr: Option<f64>,
     k: Option<f64>,
+    spread: Spread,
 }
 
 impl NetworkBuilder {
@@ -81,6 +82,7 @@ impl NetworkBuilder {
             kf,
             kr: None,
             k: None,
+            spread: Spread::default(),
         });
         self
     }
@@ -97,6 +99,23 @@ impl NetworkBuilder {
     pub fn equilibrium_constant(mut self, k: f64) -> NetworkBuilder {
         if let Some(last) = self.reactions.last_mut() {
             last.k = Some(k);
+        }
+        self
+    }
+
+    /// The last step's kf is known within a factor (95 % of values between kf/f and kf·f), for
+    /// uncertainty studies.
+    pub fn kf_uncertainty(mut self, factor: f64) -> NetworkBuilder {
+        if let Some(last) = self.reactions.last_mut() {
+            last.spread.kf = Some(UncertainValue::Factor(factor));
+        }
+        self
+    }
+
+    /// The last step's K is uncertain by a standard deviation of its ΔG°, kJ/mol.
+    pub fn k_uncertainty_kj(mut self, sd_kj: f64) -> NetworkBuilder {
+        if let Some(last) = self.reactions.last_mut() {
+            last.spread.k = Some(UncertainValue::GibbsSd(sd_kj * 1000.0));
         }
         self
     }
@@ -199,5 +218,7 @@ fn built_reaction(
             origin: origin("K"),
         });
     }
+    step.uncertainty =
+        check_spread(&pending.spread, step.k_spec.is_some()).map_err(|m| fail(".uncertainty", m))?;
     Ok(step)
 }

@@ -26,7 +26,7 @@ use crate::error::{Error, InputError};
 use crate::units::{parse_quantity, Dimension};
 pub use equation::{parse_equation, ParsedEquation};
 pub use formula::{parse_formula, Formula};
-use rules::{check_directions, check_name, mass_action_orders, resolve_side};
+use rules::{check_directions, check_name, check_uncertainty, mass_action_orders, resolve_side};
 
 /// Run temperature when the file gives none (IUPAC standard ambient temperature).
 pub const DEFAULT_TEMPERATURE_K: f64 = 298.15;
@@ -973,17 +973,7 @@ impl<'a> Reader<'a> {
             } else {
                 UncertainValue::Factor(self.number(v, &sub)?)
             };
-            let fine = match given {
-                UncertainValue::Factor(f) => (1.0..=1000.0).contains(&f),
-                UncertainValue::GibbsSd(sd) => (0.0..=100e3).contains(&sd),
-            };
-            if !fine {
-                return Err(self.error(
-                    Some(v.span()),
-                    &sub,
-                    "a factor from 1 to 1000 (2 for \"within a factor of 2\"), or for K an energy up to 100 kJ/mol",
-                ));
-            }
+            check_uncertainty(&given).map_err(|m| self.error(Some(v.span()), &sub, m))?;
             match key.get_ref().as_ref() {
                 "kf" => spread.kf = Some(given),
                 "kr" => spread.kr = Some(given),

@@ -1,7 +1,7 @@
 //! The rules every network obeys however it was written, file or builder: each rule is one
 //! function that returns the message, and the caller adds the line and field it knows.
 
-use super::{limits, Species};
+use super::{limits, Species, Spread, UncertainValue};
 
 /// A species name: starts with a letter (or a bracket, for `[Cu(NH3)4]2+`-style names) and
 /// holds nothing the equation syntax uses.
@@ -55,4 +55,29 @@ pub(super) fn mass_action_orders(side: &[(usize, f64)], species: &[Species]) -> 
         .copied()
         .filter(|&(i, order)| species[i].in_rate_laws() && order > 0.0)
         .collect()
+}
+
+/// Uncertainties within reason: factors from 1 to 1000, ΔG° deviations up to 100 kJ/mol, and a
+/// K spread only on a step that gives K.
+pub(super) fn check_spread(spread: &Spread, gives_k: bool) -> Result<Spread, String> {
+    if spread.k.is_some() && !gives_k {
+        return Err("the step does not give K, so K has no uncertainty".into());
+    }
+    let fine = |u: &Option<UncertainValue>| u.as_ref().is_none_or(|u| check_uncertainty(u).is_ok());
+    match fine(&spread.kf) && fine(&spread.kr) && fine(&spread.k) {
+        true => Ok(spread.clone()),
+        false => Err(SPREAD_RANGE.into()),
+    }
+}
+
+const SPREAD_RANGE: &str =
+    "a factor from 1 to 1000 (2 for \"within a factor of 2\"), or for K an energy up to 100 kJ/mol";
+
+/// One constant's uncertainty within reason.
+pub(super) fn check_uncertainty(u: &UncertainValue) -> Result<(), &'static str> {
+    let fine = match u {
+        UncertainValue::Factor(f) => (1.0..=1000.0).contains(f),
+        UncertainValue::GibbsSd(sd) => (0.0..=100e3).contains(sd),
+    };
+    fine.then_some(()).ok_or(SPREAD_RANGE)
 }
