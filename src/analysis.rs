@@ -103,11 +103,11 @@ fn settle_time(trajectory: &Trajectory, i: usize, target: f64, band: f64) -> Opt
     let Some(k) = (0..last).rev().find(|&k| outside(k)) else {
         return Some(0.0);
     };
-    // The crossing lies in (t_k, t_{k+1}]: bisect on the Hermite interpolant.
+    // The crossing lies in (t_k, t_{k+1}]: bisect on that interval's Hermite interpolant.
     let (mut lo, mut hi) = (trajectory.times[k], trajectory.times[k + 1]);
     for _ in 0..60 {
         let mid = 0.5 * (lo + hi);
-        if (trajectory.value_at(i, mid) - target).abs() > band {
+        if (trajectory.value_in(k, i, mid) - target).abs() > band {
             lo = mid;
         } else {
             hi = mid;

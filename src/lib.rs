@@ -71,8 +71,8 @@ pub use equilibrium::{extents, solve as solve_equilibrium, Equilibrium, NoEquili
 pub use error::{Error, InputError, IntegrationError};
 pub use format::number as format_number;
 pub use integrate::{
-    integrate, Options as IntegrationOptions, Solution, StopReason, Trajectory, DEFAULT_ATOL,
-    DEFAULT_MAX_TIME, DEFAULT_RTOL,
+    integrate, Method as IntegrationMethod, Options as IntegrationOptions, Solution, StopReason, Trajectory,
+    DEFAULT_ATOL, DEFAULT_MAX_TIME, DEFAULT_RTOL,
 };
 pub use kinetics::RateModel;
 pub use network::{

@@ -5,7 +5,7 @@ use crate::analysis::{self, Settling};
 use crate::audit::{self, Audit};
 use crate::equilibrium::{self, Equilibrium, NoEquilibrium};
 use crate::error::Error;
-use crate::integrate::{self, Options, Solution};
+use crate::integrate::{self, Method, Options, Solution};
 use crate::kinetics::RateModel;
 use crate::network::Network;
 use crate::relaxation::{self, Mode};
@@ -24,6 +24,8 @@ pub struct RunSettings {
     pub atol: f64,
     /// Force the dense (true) or sparse (false) linear algebra; None chooses by size.
     pub force_dense: Option<bool>,
+    /// The integration method (`Auto` chooses by size).
+    pub method: Method,
     /// Units of time and concentration in tables and charts.
     pub units: OutputUnits,
     /// Extra output times for `table_at_times.csv`, s (empty for none).
@@ -58,6 +60,7 @@ impl Default for RunSettings {
             rtol: integrate::DEFAULT_RTOL,
             atol: integrate::DEFAULT_ATOL,
             force_dense: None,
+            method: Method::Auto,
             units: OutputUnits::default(),
             output_times: Vec::new(),
             output_every: None,
@@ -221,6 +224,7 @@ fn integration_options(
         atol: atol.to_vec(),
         until: settings.until,
         force_dense: settings.force_dense,
+        method: settings.method,
         target: solved.as_ref().ok().map(|e| e.concentrations.clone()),
         max_time: horizon(relaxation),
         max_seconds: settings.max_seconds,

@@ -83,6 +83,34 @@ fn default_tolerances_give_three_good_digits_of_time_to_equilibrium() {
 }
 
 #[test]
+fn both_integration_methods_give_three_good_digits_of_time_to_equilibrium() {
+    // The same closed form through each method forced (Auto picks RODAS4 for two species).
+    for method in [
+        kinequil::IntegrationMethod::Rodas4,
+        kinequil::IntegrationMethod::Ndf,
+    ] {
+        let settings = kinequil::RunSettings {
+            method,
+            ..kinequil::RunSettings::default()
+        };
+        let result = kinequil::run(&crate::util::network(A_TO_B), &settings).expect("run succeeds");
+        assert!(
+            result.solution.equilibrium_at.is_some() && !result.disagrees,
+            "{method:?}"
+        );
+        for s in &result.settling {
+            let expected = (1.0 / s.tolerance).ln() / 3.0;
+            let got = s.seconds.expect("reached");
+            assert!(
+                rel(got, expected) < 1e-3,
+                "{method:?} tol {}: {got} vs {expected}",
+                s.tolerance
+            );
+        }
+    }
+}
+
+#[test]
 fn a_slow_mode_does_not_stop_the_run_early() {
     // A <=> B fast (kf + kr = 2e3 /s), B <=> C slow (kf + kr = 2e-6 /s). The equilibrium (all
     // K = 1) is A = B = C = 1/3 of the total (closed form of consecutive reversible first-order

@@ -113,6 +113,9 @@ struct RunArgs {
     /// Run temperature, overriding the file's (K, or with units such as "60 degC").
     #[arg(long, value_name = "T")]
     pub temperature: Option<String>,
+    /// Integration method: auto (NDF from 16 species, RODAS4 below), or either one, to cross-check.
+    #[arg(long, value_enum, default_value_t = IntegratorArg::Auto)]
+    pub integrator: IntegratorArg,
     /// Time unit of tables and charts.
     #[arg(long, value_enum, default_value_t = TimeUnitArg::S)]
     pub time_unit: TimeUnitArg,
@@ -330,6 +333,7 @@ fn run_settings(args: &RunArgs) -> Result<RunSettings, Error> {
         rtol,
         atol: args.atol,
         force_dense: None,
+        method: args.integrator.into(),
         units: OutputUnits {
             time: time_unit,
             concentration: args.conc_unit.into(),
@@ -450,6 +454,14 @@ choice!(
         MmolPerL => ConcentrationUnit::MmolPerL,
         #[value(name = "mol/m3")]
         MolPerM3 => ConcentrationUnit::MolPerM3,
+    }
+);
+choice!(
+    /// `--integrator`
+    IntegratorArg => crate::integrate::Method {
+        Auto => crate::integrate::Method::Auto,
+        Rodas4 => crate::integrate::Method::Rodas4,
+        Ndf => crate::integrate::Method::Ndf,
     }
 );
 choice!(
