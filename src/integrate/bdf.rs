@@ -23,8 +23,8 @@ use crate::linalg::LinearSolver;
 use crate::stoich::ConservationLaw;
 
 use super::{
-    equilibrium_test, initial_step, next_move, EquilibriumDetector, Move, Options, Projection, Solution,
-    Stats, Trajectory,
+    equilibrium_test, next_move, start, EquilibriumDetector, Move, Options, Projection, Solution, Start,
+    Stats,
 };
 
 const MAX_ORDER: usize = 5;
@@ -253,16 +253,14 @@ pub(super) fn integrate(
     let coefficients = Coefficients::new();
     let newton_tol = (10.0 * f64::EPSILON / options.rtol).max(0.03_f64.min(options.rtol.sqrt()));
 
-    let max_time = options.max_time.max(options.until.unwrap_or(0.0));
-    let end = options.until.unwrap_or(max_time);
+    let Start {
+        max_time,
+        mut y,
+        mut f,
+        mut trajectory,
+        mut h,
+    } = start(model, c0, options, &mut stats);
     let mut t = 0.0;
-    let mut y = c0.to_vec();
-    let mut f = vec![0.0; n];
-    model.rhs(&y, &mut f);
-    stats.rhs_evals += 1;
-    let mut trajectory = Trajectory::default();
-    trajectory.push(0.0, &y, &f);
-    let mut h = initial_step(&y, &f, options, end);
     iteration.jacobian(model, &y, &mut stats);
 
     let mut d: Vec<Vec<f64>> = vec![vec![0.0; n]; MAX_ORDER + 3];

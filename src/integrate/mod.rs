@@ -401,6 +401,35 @@ fn equilibrium_test(
     detector.check(jac, f, &tol)
 }
 
+/// What both methods start from: the horizon (never before the requested time), the state and
+/// its rate at t = 0, the trajectory's first point and a first step size.
+struct Start {
+    max_time: f64,
+    y: Vec<f64>,
+    f: Vec<f64>,
+    trajectory: Trajectory,
+    h: f64,
+}
+
+fn start(model: &RateModel, c0: &[f64], options: &Options, stats: &mut Stats) -> Start {
+    let max_time = options.max_time.max(options.until.unwrap_or(0.0));
+    let end = options.until.unwrap_or(max_time);
+    let y = c0.to_vec();
+    let mut f = vec![0.0; y.len()];
+    model.rhs(&y, &mut f);
+    stats.rhs_evals += 1;
+    let mut trajectory = Trajectory::default();
+    trajectory.push(0.0, &y, &f);
+    let h = initial_step(&y, &f, options, end);
+    Start {
+        max_time,
+        y,
+        f,
+        trajectory,
+        h,
+    }
+}
+
 /// A first step from the size of the state and its rate of change (Hairer-Wanner style).
 fn initial_step(y: &[f64], f: &[f64], options: &Options, end: f64) -> f64 {
     let n = y.len() as f64;

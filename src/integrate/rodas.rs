@@ -11,8 +11,8 @@ use crate::linalg::LinearSolver;
 use crate::stoich::ConservationLaw;
 
 use super::{
-    advanced, equilibrium_test, error_norm, initial_step, next_move, step_within, EquilibriumDetector, Move,
-    Options, Projection, Solution, Stats, Trajectory,
+    advanced, equilibrium_test, error_norm, next_move, start, step_within, EquilibriumDetector, Move,
+    Options, Projection, Solution, Start, Stats,
 };
 
 /// RODAS4 coefficients in the transformed formulation (Hairer & Wanner 1996, IV.7).
@@ -92,17 +92,14 @@ pub(super) fn integrate(
     let mut detector = EquilibriumDetector::new(&jac_pattern, laws, options.force_dense);
     let projection = Projection::new(laws, c0);
 
-    // Never give up before the requested time.
-    let max_time = options.max_time.max(options.until.unwrap_or(0.0));
-    let end = options.until.unwrap_or(max_time);
+    let Start {
+        max_time,
+        mut y,
+        mut f,
+        mut trajectory,
+        mut h,
+    } = start(model, c0, options, &mut stats);
     let mut t = 0.0;
-    let mut y = c0.to_vec();
-    let mut f = vec![0.0; n];
-    model.rhs(&y, &mut f);
-    stats.rhs_evals += 1;
-    let mut trajectory = Trajectory::default();
-    trajectory.push(0.0, &y, &f);
-    let mut h = initial_step(&y, &f, options, end);
     let mut rodas = Rodas4::new(n, jac_pattern.nnz(), diagonal);
     let mut y_new = vec![0.0; n];
     let mut equilibrium_at = None;
