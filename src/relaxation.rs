@@ -120,18 +120,12 @@ pub fn modes(network: &Network, c_eq: &[f64]) -> Result<Vec<Mode>, String> {
                 .map(|s| (u[(s, k)] * c_eq[positive[s]].sqrt()).abs())
                 .collect();
             let total: f64 = displacement.iter().sum();
-            let species = top_shares(
-                displacement
-                    .iter()
-                    .enumerate()
-                    .map(|(s, d)| (network.species[positive[s]].name.clone(), d / total)),
-            );
-            let steps = top_shares(
-                steps
-                    .iter()
-                    .enumerate()
-                    .map(|(j, (eq, _, _))| (eq.clone(), v_t[(k, j)].powi(2))),
-            );
+            let species = top_shares(displacement.iter().map(|d| d / total), |s| {
+                network.species[positive[s]].name.clone()
+            });
+            let steps = top_shares((0..steps.len()).map(|j| v_t[(k, j)].powi(2)), |j| {
+                steps[j].0.clone()
+            });
             Mode {
                 tau_seconds: 1.0 / (sigma * sigma),
                 species,
@@ -151,11 +145,13 @@ pub fn modes(network: &Network, c_eq: &[f64]) -> Result<Vec<Mode>, String> {
     Ok(modes)
 }
 
-/// The largest shares, up to three, dropping those under 5 %.
-fn top_shares(items: impl Iterator<Item = (String, f64)>) -> Vec<Share> {
-    let mut all: Vec<Share> = items.map(|(name, share)| Share { name, share }).collect();
-    all.sort_by(|a, b| b.share.total_cmp(&a.share));
-    let keep = all.iter().take(3).filter(|s| s.share >= 0.05).count().max(1);
+/// The largest shares, up to three, dropping those under 5 %; only those kept are named.
+fn top_shares(shares: impl Iterator<Item = f64>, name: impl Fn(usize) -> String) -> Vec<Share> {
+    let mut all: Vec<(usize, f64)> = shares.enumerate().collect();
+    all.sort_by(|a, b| b.1.total_cmp(&a.1));
+    let keep = all.iter().take(3).filter(|s| s.1 >= 0.05).count().max(1);
     all.truncate(keep);
-    all
+    all.into_iter()
+        .map(|(k, share)| Share { name: name(k), share })
+        .collect()
 }
