@@ -71,8 +71,8 @@ fn main() {
         .collect();
     nets.sort_by_key(|p| std::fs::metadata(p).map(|m| m.len()).unwrap_or(0));
     println!(
-        "{:<10} {:>5} {:>9} {:>7} {:>7} {:>6} {:>6} {:>10} {:>10}",
-        "net", "N", "t_end", "steps", "rhs", "jac", "LU", "seconds", "err_rel"
+        "{:<10} {:>5} {:>9} {:>7} {:>7} {:>6} {:>6} {:>10} {:>10} {:>8} {:>8}",
+        "net", "N", "t_end", "steps", "rhs", "jac", "LU", "seconds", "err_rel", "peak MB", "read s"
     );
     for path in nets {
         let name = path.file_stem().unwrap().to_string_lossy().into_owned();
@@ -80,7 +80,9 @@ fn main() {
             continue;
         }
         let json: serde_json::Value = serde_json::from_str(&std::fs::read_to_string(&path).unwrap()).unwrap();
+        reset_peak_memory();
         let network = build(&json, &name);
+        let read_seconds = read_time(&network);
         let t_end = json["t_end"].as_f64().unwrap();
         let stoich = Stoichiometry::new(&network);
         let model = RateModel::new(&network);
@@ -122,7 +124,7 @@ fn main() {
             });
         let s = &solution.stats;
         println!(
-            "{:<10} {:>5} {:>9.1e} {:>7} {:>7} {:>6} {:>6} {:>10.4} {:>10}",
+            "{:<10} {:>5} {:>9.1e} {:>7} {:>7} {:>6} {:>6} {:>10.4} {:>10} {:>8} {:>8.3}",
             name,
             network.n_species(),
             t_end,
@@ -131,7 +133,41 @@ fn main() {
             s.jacobian_evals,
             s.lu_factorizations,
             seconds,
-            err.map_or("-".into(), |e| format!("{e:.2e}"))
+            err.map_or("-".into(), |e| format!("{e:.2e}")),
+            peak_memory_mb().map_or("-".into(), |m| format!("{m:.0}")),
+            read_seconds
         );
     }
+}
+
+/// Resets the process's peak resident memory (Linux: `5` to /proc/self/clear_refs), so each
+/// network's peak is its own.
+fn reset_peak_memory() {
+    let _ = std::fs::write("/proc/self/clear_refs", "5");
+}
+
+/// Peak resident memory since the last reset, MB (Linux: VmHWM in /proc/self/status).
+fn peak_memory_mb() -> Option<f64> {
+    let status = std::fs::read_to_string("/proc/self/status").ok()?;
+    let line = status.lines().find(|l| l.starts_with("VmHWM:"))?;
+    let kb: f64 = line.split_whitespace().nth(1)?.parse().ok()?;
+    Some(kb / 1024.0)
+}
+
+/// Seconds to read the network as a network file (its text written out here): the reader's
+/// cost, which must grow linearly with the size of the network.
+fn read_time(network: &Network) -> f64 {
+    let mut text = String::from("[species]\n");
+    for s in &network.species {
+        text += &format!("{} = {}\n", s.name, s.initial);
+    }
+    for r in &network.reactions {
+        text += &format!("\n[[reaction]]\nequation = \"{}\"\nkf = {}\n", r.equation, r.kf);
+        if r.reversible {
+            text += &format!("kr = {}\n", r.kr);
+        }
+    }
+    let started = Instant::now();
+    Network::from_text(&text, Path::new("peer.toml")).expect("the written network reads back");
+    started.elapsed().as_secs_f64()
 }

@@ -252,7 +252,7 @@ pub(super) fn integrate(
     };
     let mut stats = Stats::for_solver(&iteration.solver);
     stats.method = "NDF (variable order 1-5, modified Newton)".into();
-    let mut detector = EquilibriumDetector::new(&pattern, laws, options.force_dense);
+    let mut detector = EquilibriumDetector::when_needed(&pattern, laws, options);
     let projection = Projection::new(laws, c0);
     let coefficients = Coefficients::new();
     // Newton stops when its remaining error is 3 % of the local error tolerance (the norm is
@@ -411,7 +411,7 @@ pub(super) fn integrate(
             let reached = equilibrium_test(
                 model,
                 options,
-                &mut detector,
+                detector.as_mut(),
                 &mut check_jac,
                 &mut stats,
                 (&y, &before, None),

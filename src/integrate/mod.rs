@@ -361,7 +361,7 @@ fn error_norm(estimate: &[f64], y: &[f64], y_new: &[f64], options: &Options) -> 
 fn equilibrium_test(
     model: &RateModel,
     options: &Options,
-    detector: &mut EquilibriumDetector,
+    detector: Option<&mut EquilibriumDetector>,
     jac: &mut [f64],
     stats: &mut Stats,
     (y, before, f): (&[f64], &[f64], Option<&[f64]>),
@@ -376,6 +376,9 @@ fn equilibrium_test(
     if at_target {
         return true;
     }
+    let Some(detector) = detector else {
+        return false;
+    };
     let ratio = (t / h).min(SCREEN_RATIO);
     let screened = (0..n).all(|i| (y[i] - before[i]).abs() * ratio <= EQUILIBRIUM_SCREEN * scale(y, i));
     if !screened {
@@ -538,6 +541,18 @@ struct EquilibriumDetector {
 }
 
 impl EquilibriumDetector {
+    /// The detector, unless the run has a solved equilibrium to stop at and the network is large:
+    /// there a conservation law over many species puts a dense row and column in the bordered
+    /// matrix, whose factorisation would then cost more than the whole integration.
+    fn when_needed(
+        jac: &Pattern,
+        laws: &[ConservationLaw],
+        options: &Options,
+    ) -> Option<EquilibriumDetector> {
+        let large = jac.n > crate::linalg::DENSE_LIMIT;
+        (options.target.is_none() || !large).then(|| EquilibriumDetector::new(jac, laws, options.force_dense))
+    }
+
     fn new(jac: &Pattern, laws: &[ConservationLaw], force_dense: Option<bool>) -> EquilibriumDetector {
         let n = jac.n;
         let mut entries = Vec::new();

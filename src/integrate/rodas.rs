@@ -89,7 +89,7 @@ pub(super) fn integrate(
     let diagonal = jac_pattern.diagonal_positions();
     let mut solver = LinearSolver::new(jac_pattern.clone(), options.force_dense);
     let mut stats = Stats::for_solver(&solver);
-    let mut detector = EquilibriumDetector::new(&jac_pattern, laws, options.force_dense);
+    let mut detector = EquilibriumDetector::when_needed(&jac_pattern, laws, options);
     let projection = Projection::new(laws, c0);
 
     let Start {
@@ -146,7 +146,7 @@ pub(super) fn integrate(
             let reached = equilibrium_test(
                 model,
                 options,
-                &mut detector,
+                detector.as_mut(),
                 &mut rodas.jac,
                 &mut stats,
                 (&y, &y_new, Some(&f)),

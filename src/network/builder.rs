@@ -1,6 +1,7 @@
 //! Networks built in code, for sweeps, ensembles, benchmarks and tests: the same checks and the
 //! same evaluation as a network file, without writing text.
 
+use std::collections::HashMap;
 use std::path::PathBuf;
 
 use crate::error::InputError;
@@ -133,10 +134,11 @@ impl NetworkBuilder {
             return Err(fail("species".into(), "the network has no species".into()));
         }
         let mut species: Vec<Species> = Vec::new();
+        let mut seen = std::collections::HashSet::new();
         for (name, initial, phase) in &self.species {
             let field = format!("species.{name}");
             check_name(name).map_err(|m| fail(field.clone(), m))?;
-            if species.iter().any(|s| &s.name == name) {
+            if !seen.insert(name.as_str()) {
                 return Err(fail(field, format!("`{name}` is listed twice")));
             }
             if !(initial.is_finite() && *initial >= 0.0) {
@@ -153,11 +155,16 @@ impl NetworkBuilder {
         if self.reactions.is_empty() {
             return Err(fail("reaction".into(), "the network has no reaction".into()));
         }
+        let index: HashMap<String, usize> = species
+            .iter()
+            .enumerate()
+            .map(|(i, s)| (s.name.clone(), i))
+            .collect();
         let reactions = self
             .reactions
             .iter()
             .enumerate()
-            .map(|(j, pending)| built_reaction(pending, j, &species, &file))
+            .map(|(j, pending)| built_reaction(pending, j, (&species, &index), &file))
             .collect::<Result<Vec<Reaction>, InputError>>()?;
         let network = Network {
             source: file.clone(),
@@ -175,7 +182,7 @@ impl NetworkBuilder {
 fn built_reaction(
     pending: &Pending,
     j: usize,
-    species: &[Species],
+    (species, index): (&[Species], &HashMap<String, usize>),
     file: &std::path::Path,
 ) -> Result<Reaction, InputError> {
     let field = format!("reaction[{}]", j + 1);
@@ -186,7 +193,9 @@ fn built_reaction(
         message,
     };
     let parsed = parse_equation(&pending.equation).map_err(|m| fail(".equation", m))?;
-    let resolve = |side: &[(String, f64)]| resolve_side(side, species).map_err(|m| fail(".equation", m));
+    let resolve = |side: &[(String, f64)]| {
+        resolve_side(side, |name| index.get(name).copied()).map_err(|m| fail(".equation", m))
+    };
     let sides = (resolve(&parsed.reactants)?, resolve(&parsed.products)?);
     let reverse_given = pending.kr.is_some() || pending.k.is_some();
     check_directions(parsed.reversible, reverse_given).map_err(|m| fail("", m.into()))?;

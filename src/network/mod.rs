@@ -331,6 +331,8 @@ impl Network {
             file: source,
             text,
             temperature_override: temperature,
+            index: std::cell::OnceCell::new(),
+            newlines: std::cell::OnceCell::new(),
         }
         .read()
     }
@@ -390,18 +392,32 @@ struct Reader<'a> {
     file: &'a Path,
     text: &'a str,
     temperature_override: Option<f64>,
+    /// Species name → index, filled once the species are read, so that reading the reactions
+    /// takes time linear in the size of the network.
+    index: std::cell::OnceCell<std::collections::HashMap<String, usize>>,
+    /// Byte offsets of the newlines, for line numbers in messages.
+    newlines: std::cell::OnceCell<Vec<usize>>,
 }
 
 type Value<'i> = Spanned<DeValue<'i>>;
 
 impl<'a> Reader<'a> {
+    /// The index of a species by name (once the species are read).
+    fn index_of(&self, name: &str) -> Option<usize> {
+        self.index.get().and_then(|index| index.get(name).copied())
+    }
+
+    /// The 1-based line of a byte offset, by binary search in the line starts (computed once).
     fn line_of(&self, offset: usize) -> usize {
-        let end = offset.min(self.text.len());
-        self.text.as_bytes()[..end]
-            .iter()
-            .filter(|&&b| b == b'\n')
-            .count()
-            + 1
+        let newlines = self.newlines.get_or_init(|| {
+            self.text
+                .bytes()
+                .enumerate()
+                .filter(|&(_, b)| b == b'\n')
+                .map(|(k, _)| k)
+                .collect()
+        });
+        newlines.partition_point(|&k| k < offset.min(self.text.len())) + 1
     }
 
     fn error(&self, span: Option<Range<usize>>, field: &str, message: impl Into<String>) -> InputError {
@@ -554,6 +570,13 @@ impl<'a> Reader<'a> {
         if items.is_empty() {
             return Err(self.error(Some(value.span()), "reaction", "the network has no reactions"));
         }
+        self.index.get_or_init(|| {
+            species
+                .iter()
+                .enumerate()
+                .map(|(i, s)| (s.name.clone(), i))
+                .collect()
+        });
         items
             .iter()
             .enumerate()
@@ -592,7 +615,7 @@ impl<'a> Reader<'a> {
             reversible,
             reactants,
             products,
-        } = self.resolved_equation(table, item, field, species)?;
+        } = self.resolved_equation(table, item, field)?;
 
         let (forward_orders, reverse_orders) =
             self.rate_orders(table, field, reversible, &reactants, &products, species)?;
@@ -717,7 +740,6 @@ impl<'a> Reader<'a> {
         table: &DeTable<'_>,
         item: &Value<'_>,
         field: &str,
-        species: &[Species],
     ) -> Result<ResolvedEquation, InputError> {
         let eq_field = format!("{field}.equation");
         let Some(eq_value) = table.get("equation") else {
@@ -731,7 +753,8 @@ impl<'a> Reader<'a> {
         let line = self.line_of(eq_value.span().start);
         let parsed = parse_equation(equation).map_err(|m| self.error(Some(eq_value.span()), &eq_field, m))?;
         let resolve = |side: &[(String, f64)]| {
-            resolve_side(side, species).map_err(|m| self.error(Some(eq_value.span()), &eq_field, m))
+            resolve_side(side, |name| self.index_of(name))
+                .map_err(|m| self.error(Some(eq_value.span()), &eq_field, m))
         };
         let reactants = resolve(&parsed.reactants)?;
         let products = resolve(&parsed.products)?;
@@ -808,7 +831,7 @@ impl<'a> Reader<'a> {
             };
             for (key, v) in table.iter() {
                 let sub = format!("{field}.{}", key.get_ref());
-                let Some(i) = species.iter().position(|s| s.name == key.get_ref().as_ref()) else {
+                let Some(i) = self.index_of(key.get_ref().as_ref()) else {
                     return Err(self.error(
                         Some(key.span()),
                         &sub,

@@ -20,7 +20,10 @@ pub(super) fn check_name(name: &str) -> Result<(), String> {
 
 /// One side of a parsed equation as (species index, coefficient), every name known and every
 /// coefficient within the limit.
-pub(super) fn resolve_side(side: &[(String, f64)], species: &[Species]) -> Result<Vec<(usize, f64)>, String> {
+pub(super) fn resolve_side(
+    side: &[(String, f64)],
+    index_of: impl Fn(&str) -> Option<usize>,
+) -> Result<Vec<(usize, f64)>, String> {
     side.iter()
         .map(|(name, coefficient)| {
             if *coefficient > limits::MAX_COEFFICIENT {
@@ -29,9 +32,7 @@ pub(super) fn resolve_side(side: &[(String, f64)], species: &[Species]) -> Resul
                     limits::MAX_COEFFICIENT
                 ));
             }
-            species
-                .iter()
-                .position(|s| &s.name == name)
+            index_of(name)
                 .map(|i| (i, *coefficient))
                 .ok_or_else(|| format!("unknown species `{name}`: declare it among the species"))
         })
