@@ -5,7 +5,7 @@ use crate::run::{noise_levels, RunResult};
 use crate::units::TimeUnit;
 
 use super::figure::{Band, Figure, Level, Mark, Pattern, Series};
-use super::table::{busiest_steps, output_times, step_rates};
+use super::table::{busiest_steps, output_times, peak_forward_rates, step_rates};
 use super::terminal_time;
 use crate::format::percent;
 
@@ -345,10 +345,11 @@ fn approach(result: &RunResult, frame: &Frame) -> Option<Figure> {
     })
 }
 
-/// Forward and reverse rates of every step at the frame's times, computed once for both the rate
-/// and the Q/K chart.
+/// Forward and reverse rates at the frame's times of the steps either chart shows, computed once
+/// for both the rate and the Q/K chart, and every step's peak forward rate (which picks them).
 struct Rates {
     times: Vec<f64>,
+    peaks: Vec<f64>,
     forward: Vec<Vec<f64>>,
     reverse: Vec<Vec<f64>>,
 }
@@ -356,9 +357,15 @@ struct Rates {
 impl Rates {
     fn new(result: &RunResult, frame: &Frame) -> Rates {
         let times: Vec<f64> = frame.plotted_times().collect();
-        let (forward, reverse) = step_rates(result, &times);
+        let peaks = peak_forward_rates(result, &times);
+        let mut shown = busiest_steps(&peaks, MAX_STEPS, |_| true);
+        shown.extend(busiest_steps(&peaks, MAX_STEPS, |j| result.network.reactions[j].runs_both_ways()));
+        shown.sort_unstable();
+        shown.dedup();
+        let (forward, reverse) = step_rates(result, &times, &shown);
         Rates {
             times,
+            peaks,
             forward,
             reverse,
         }
@@ -368,10 +375,11 @@ impl Rates {
 fn rates(result: &RunResult, frame: &Frame, rates: &Rates) -> Figure {
     let Rates {
         times,
+        peaks,
         forward,
         reverse,
     } = rates;
-    let shown = busiest_steps(forward, MAX_STEPS, |_| true);
+    let shown = busiest_steps(peaks, MAX_STEPS, |_| true);
     let mut series = Vec::new();
     for (k, &j) in shown.iter().enumerate() {
         let label = step_label(j);
@@ -434,6 +442,7 @@ fn rates(result: &RunResult, frame: &Frame, rates: &Rates) -> Figure {
 fn quotients(result: &RunResult, frame: &Frame, rates: &Rates) -> Option<Figure> {
     let Rates {
         times,
+        peaks,
         forward,
         reverse,
     } = rates;
@@ -441,7 +450,7 @@ fn quotients(result: &RunResult, frame: &Frame, rates: &Rates) -> Option<Figure>
         let r = &result.network.reactions[j];
         r.runs_both_ways()
     };
-    let shown = busiest_steps(forward, MAX_STEPS, reversible);
+    let shown = busiest_steps(peaks, MAX_STEPS, reversible);
     if shown.is_empty() {
         return None;
     }

@@ -73,15 +73,29 @@ fn state_table(result: &RunResult, times: &[f64]) -> String {
 /// kept so that tables of large networks stay a manageable size.
 pub const MAX_RATE_STEPS: usize = 100;
 
-/// Forward and reverse rate of every step at the given times, mol/(L s), indexed [step][time].
-pub fn step_rates(result: &RunResult, times: &[f64]) -> (Vec<Vec<f64>>, Vec<Vec<f64>>) {
+/// The largest forward rate of every step over `times`, in one pass (nothing per time is kept,
+/// so a network of thousands of steps needs no rate matrix to pick its busiest steps).
+pub fn peak_forward_rates(result: &RunResult, times: &[f64]) -> Vec<f64> {
+    let model = RateModel::new(&result.network);
+    let m = model.n_steps();
+    let (mut f, mut r, mut peak) = (vec![0.0; m], vec![0.0; m], vec![0.0_f64; m]);
+    for &t in times {
+        model.step_rates(&result.solution.trajectory.state_at(t), &mut f, &mut r);
+        peak.iter_mut().zip(&f).for_each(|(p, v)| *p = p.max(*v));
+    }
+    peak
+}
+
+/// Forward and reverse rates of the listed steps at `times`: row j holds step j's rates (rows
+/// of steps not listed stay empty).
+pub fn step_rates(result: &RunResult, times: &[f64], steps: &[usize]) -> (Vec<Vec<f64>>, Vec<Vec<f64>>) {
     let model = RateModel::new(&result.network);
     let m = model.n_steps();
     let (mut forward, mut reverse) = (vec![Vec::new(); m], vec![Vec::new(); m]);
     let (mut f, mut r) = (vec![0.0; m], vec![0.0; m]);
     for &t in times {
         model.step_rates(&result.solution.trajectory.state_at(t), &mut f, &mut r);
-        for j in 0..m {
+        for &j in steps {
             forward[j].push(f[j]);
             reverse[j].push(r[j]);
         }
@@ -91,10 +105,9 @@ pub fn step_rates(result: &RunResult, times: &[f64]) -> (Vec<Vec<f64>>, Vec<Vec<
 
 /// The steps with the largest peak forward rate among those `only` accepts, at most `limit`, in
 /// step order.
-pub fn busiest_steps(forward: &[Vec<f64>], limit: usize, only: impl Fn(usize) -> bool) -> Vec<usize> {
-    let peak = |j: usize| forward[j].iter().copied().fold(0.0, f64::max);
-    let mut order: Vec<usize> = (0..forward.len()).filter(|&j| only(j)).collect();
-    order.sort_by(|&a, &b| peak(b).total_cmp(&peak(a)));
+pub fn busiest_steps(peaks: &[f64], limit: usize, only: impl Fn(usize) -> bool) -> Vec<usize> {
+    let mut order: Vec<usize> = (0..peaks.len()).filter(|&j| only(j)).collect();
+    order.sort_by(|&a, &b| peaks[b].total_cmp(&peaks[a]));
     order.truncate(limit);
     order.sort_unstable();
     order
@@ -104,8 +117,8 @@ pub fn busiest_steps(forward: &[Vec<f64>], limit: usize, only: impl Fn(usize) ->
 /// [`MAX_RATE_STEPS`] busiest) at the output times.
 pub fn rates_csv(result: &RunResult) -> String {
     let times = output_times(result);
-    let (forward, reverse) = step_rates(result, &times);
-    let steps = busiest_steps(&forward, MAX_RATE_STEPS, |_| true);
+    let steps = busiest_steps(&peak_forward_rates(result, &times), MAX_RATE_STEPS, |_| true);
+    let (forward, reverse) = step_rates(result, &times, &steps);
     let t_unit = result.settings.units.time;
     let mut writer = csv::Writer::from_writer(Vec::new());
     let mut header = vec![format!("time [{}]", t_unit.symbol())];
