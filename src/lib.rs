@@ -16,8 +16,8 @@
 //! - **Studies** (many members of one network, in-process on every core): [`Axis`], [`grid`]
 //!   and [`at_point`] for sweeps, [`Sampler`] for uncertainty ensembles, [`Outcome::of`] for
 //!   one member, [`tabulate`] for a [`StudyTable`], [`merge_shards`] and [`render_study`].
-//! - **Reports**: [`render_run`] gives every output file as bytes, [`write_run_folder`] writes
-//!   them whole or not at all; [`Summary`], [`terminal_text`], [`audit_text`], [`EquilibriumTable`] for text.
+//! - **Reports**: [`render_run`] gives every output file ([`ReportContent`]: bytes, or a table
+//!   streamed when written), [`write_run_folder`] writes them whole or not at all; [`Summary`], [`terminal_text`], [`audit_text`], [`EquilibriumTable`] for text.
 //!
 //! The README's example (kept identical by `tests/docs.rs`):
 //!
@@ -85,7 +85,7 @@ pub use report::summary::Summary;
 pub use report::{
     audit_table::render as audit_text, chart::ChartOptions, chart::TimeAxis,
     equilibrium_table::EquilibriumTable, render_run, terminal::render as terminal_text,
-    write_all as write_run_folder, RUN_MARKER,
+    write_all as write_run_folder, Content as ReportContent, RUN_MARKER,
 };
 pub use run::{run, RunResult, RunSettings};
 pub use sensitivity::{

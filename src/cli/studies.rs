@@ -199,7 +199,7 @@ fn progress_bar(total: usize) -> impl Fn(usize) + Sync {
 
 fn write(prepared: &Prepared, study: &Study, table: &Table, force: bool) -> Result<String, Error> {
     let files = study_files::render_study(study, table)?;
-    let written = report::write_all(&prepared.out, &files, force)?;
+    let written = report::write_all(&prepared.out, &report::as_contents(files), force)?;
     Ok(study_files::terminal_text(study, table, &written))
 }
 
@@ -287,7 +287,7 @@ pub(super) fn merge_command(args: MergeArgs) -> Result<String, Error> {
     let (study, table) = study::merge(parts).map_err(|m| option("(shard folders)", &m))?;
     report::recover_interrupted(&args.out);
     let files = study_files::render_study(&study, &table)?;
-    let written = report::write_all(&args.out, &files, args.force)?;
+    let written = report::write_all(&args.out, &report::as_contents(files), args.force)?;
     Ok(study_files::terminal_text(&study, &table, &written))
 }
 
@@ -306,7 +306,7 @@ pub(super) fn sensitivity_command(args: SensitivityArgs) -> Result<String, Error
     let (found, route) = crate::sensitivity::sensitivities(network, tolerances, prepared.threads)
         .map_err(|m| option("(network)", &format!("no sensitivities: {m}")))?;
     let files = report::sensitivity::render_sensitivity(network, tolerances, &found, route)?;
-    let written = report::write_all(&prepared.out, &files, args.shared.force)?;
+    let written = report::write_all(&prepared.out, &report::as_contents(files), args.shared.force)?;
     Ok(report::sensitivity::terminal_text(
         network, tolerances, &found, &written,
     ))

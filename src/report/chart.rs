@@ -359,7 +359,9 @@ impl Rates {
         let times: Vec<f64> = frame.plotted_times().collect();
         let peaks = peak_forward_rates(result, &times);
         let mut shown = busiest_steps(&peaks, MAX_STEPS, |_| true);
-        shown.extend(busiest_steps(&peaks, MAX_STEPS, |j| result.network.reactions[j].runs_both_ways()));
+        shown.extend(busiest_steps(&peaks, MAX_STEPS, |j| {
+            result.network.reactions[j].runs_both_ways()
+        }));
         shown.sort_unstable();
         shown.dedup();
         let (forward, reverse) = step_rates(result, &times, &shown);

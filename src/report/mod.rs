@@ -73,11 +73,36 @@ pub fn utc_now() -> String {
     )
 }
 
-/// Renders every output of a run in memory: (file name, contents).
-pub fn render_run(
-    result: &RunResult,
+/// The contents of an output file: bytes, or a table written row by row straight into the new
+/// folder (the trajectory of thousands of species runs to hundreds of MB).
+pub enum Content<'a> {
+    Bytes(Vec<u8>),
+    Stream(Box<Writer<'a>>),
+}
+
+/// Writes a file's contents into an open file.
+pub type Writer<'a> = dyn Fn(&mut dyn std::io::Write) -> std::io::Result<()> + 'a;
+
+impl From<Vec<u8>> for Content<'_> {
+    fn from(bytes: Vec<u8>) -> Self {
+        Content::Bytes(bytes)
+    }
+}
+
+/// Files as bytes, as [`write_all`] takes them.
+pub fn as_contents(files: Vec<(String, Vec<u8>)>) -> Vec<(String, Content<'static>)> {
+    files
+        .into_iter()
+        .map(|(name, bytes)| (name, Content::Bytes(bytes)))
+        .collect()
+}
+
+/// Renders every output of a run: (file name, contents); the trajectory table is streamed when
+/// written.
+pub fn render_run<'a>(
+    result: &'a RunResult,
     chart_options: &chart::ChartOptions,
-) -> Result<Vec<(String, Vec<u8>)>, Error> {
+) -> Result<Vec<(String, Content<'a>)>, Error> {
     let render_error = |name: &str, message: String| Error::Compose {
         what: name.into(),
         message,
@@ -86,27 +111,30 @@ pub fn render_run(
     let json =
         serde_json::to_string_pretty(&summary).map_err(|e| render_error("summary.json", e.to_string()))?;
     let sha = sha256_hex(&result.network.source_text);
-    let mut files: Vec<(String, Vec<u8>)> = vec![
-        ("summary.json".into(), (json + "\n").into_bytes()),
+    let mut files: Vec<(String, Content<'a>)> = vec![
+        ("summary.json".into(), (json + "\n").into_bytes().into()),
         (
             "trajectory.csv".into(),
-            table::trajectory_csv(result).into_bytes(),
+            Content::Stream(Box::new(move |out| table::write_trajectory_csv(result, out))),
         ),
-        ("rates.csv".into(), table::rates_csv(result).into_bytes()),
+        ("rates.csv".into(), table::rates_csv(result).into_bytes().into()),
         (
             "summary_row.csv".into(),
-            table::summary_row_csv(result, &sha).into_bytes(),
+            table::summary_row_csv(result, &sha).into_bytes().into(),
         ),
     ];
     if !result.settings.output_times.is_empty() {
-        files.push(("table_at_times.csv".into(), table::times_csv(result).into_bytes()));
+        files.push((
+            "table_at_times.csv".into(),
+            table::times_csv(result).into_bytes().into(),
+        ));
     }
     let mut charts = Vec::new();
     for (stem, figure) in chart::figures(result, chart_options) {
         let (svg, png) = figure.render().map_err(|m| render_error(stem, m))?;
         charts.push((figure.title.clone(), svg.clone()));
-        files.push((format!("{stem}.svg"), svg.into_bytes()));
-        files.push((format!("{stem}.png"), png));
+        files.push((format!("{stem}.svg"), svg.into_bytes().into()));
+        files.push((format!("{stem}.png"), png.into()));
     }
     let mut names: Vec<String> = files.iter().map(|(n, _)| n.clone()).collect();
     names.push("report.html".into());
@@ -116,7 +144,10 @@ pub fn render_run(
         charts: &charts,
         files: &names,
     };
-    files.push(("report.html".into(), html::render(result, &inputs).into_bytes()));
+    files.push((
+        "report.html".into(),
+        html::render(result, &inputs).into_bytes().into(),
+    ));
     Ok(files)
 }
 
@@ -170,7 +201,7 @@ pub const RUN_MARKER: &str = ".kinequil-run";
 /// first and removed after, so `dir` always holds exactly one run and `--force` leaves no file
 /// of the earlier one. Refuses when `dir` holds results unless `force`, and always refuses to
 /// replace a folder holding files kinequil did not write.
-pub fn write_all(dir: &Path, files: &[(String, Vec<u8>)], force: bool) -> Result<Vec<PathBuf>, Error> {
+pub fn write_all(dir: &Path, files: &[(String, Content<'_>)], force: bool) -> Result<Vec<PathBuf>, Error> {
     let write_error = |path: &Path, e: std::io::Error| Error::Write {
         path: path.to_path_buf(),
         source: e,
@@ -198,9 +229,17 @@ pub fn write_all(dir: &Path, files: &[(String, Vec<u8>)], force: bool) -> Result
     let staging = parent.join(format!(".{name}.kinequil-new-{}", std::process::id()));
     let staged = (|| -> Result<(), Error> {
         fs::create_dir_all(&staging).map_err(|e| write_error(&staging, e))?;
-        for (file, bytes) in files {
+        for (file, content) in files {
             let path = staging.join(file);
-            fs::write(&path, bytes).map_err(|e| write_error(&path, e))?;
+            match content {
+                Content::Bytes(bytes) => fs::write(&path, bytes),
+                Content::Stream(write) => fs::File::create(&path).and_then(|file| {
+                    let mut out = std::io::BufWriter::new(file);
+                    write(&mut out)?;
+                    std::io::Write::flush(&mut out)
+                }),
+            }
+            .map_err(|e| write_error(&path, e))?;
         }
         let marker = staging.join(RUN_MARKER);
         fs::write(

@@ -25,23 +25,27 @@ pub fn output_times(result: &RunResult) -> Vec<f64> {
     times
 }
 
-/// `trajectory.csv`: the state at every accepted step and on linear and log time grids.
-pub fn trajectory_csv(result: &RunResult) -> String {
-    state_table(result, &output_times(result))
+/// `trajectory.csv`: the state at every accepted step and on linear and log time grids, written
+/// row by row (for thousands of species it runs to hundreds of MB, never held in memory).
+pub fn write_trajectory_csv(result: &RunResult, out: &mut dyn std::io::Write) -> std::io::Result<()> {
+    write_state_table(result, &output_times(result), out)
 }
 
 /// `table_at_times.csv`: the state at the user's output times.
 pub fn times_csv(result: &RunResult) -> String {
-    state_table(result, &result.settings.output_times)
+    let mut bytes = Vec::new();
+    // Writing to memory cannot fail.
+    let _ = write_state_table(result, &result.settings.output_times, &mut bytes);
+    String::from_utf8(bytes).unwrap_or_default()
 }
 
 /// Time, then one column per species, in the chosen output units; for networks with gases,
 /// their partial pressures and the total pressure in bar. Times after the end of the integration
 /// give the end state (the run only ends early at equilibrium).
-fn state_table(result: &RunResult, times: &[f64]) -> String {
+fn write_state_table(result: &RunResult, times: &[f64], out: &mut dyn std::io::Write) -> std::io::Result<()> {
     let units = result.settings.units;
     let (t_scale, c_scale) = (units.time.seconds(), units.concentration.mol_per_l());
-    let mut writer = csv::Writer::from_writer(Vec::new());
+    let mut writer = csv::Writer::from_writer(out);
     let mut header = vec![format!("time [{}]", units.time.symbol())];
     header.extend(
         result
@@ -54,8 +58,7 @@ fn state_table(result: &RunResult, times: &[f64]) -> String {
         header.extend(partial.iter().map(|(name, _)| format!("p({name}) [bar]")));
         header.push("p_total [bar]".into());
     }
-    // Writing to memory cannot fail.
-    let _ = writer.write_record(&header);
+    writer.write_record(&header).map_err(std::io::Error::other)?;
     for &t in times {
         let state = result.solution.trajectory.state_at(t);
         let mut row = vec![format!("{:.9e}", t / t_scale)];
@@ -64,9 +67,9 @@ fn state_table(result: &RunResult, times: &[f64]) -> String {
             row.extend(partial.iter().map(|(_, p)| format!("{p:.9e}")));
             row.push(format!("{total:.9e}"));
         }
-        let _ = writer.write_record(&row);
+        writer.write_record(&row).map_err(std::io::Error::other)?;
     }
-    String::from_utf8(writer.into_inner().unwrap_or_default()).unwrap_or_default()
+    writer.flush()
 }
 
 /// Most steps in `rates.csv`: beyond this, the busiest steps (largest peak forward rate) are
