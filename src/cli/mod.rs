@@ -254,6 +254,17 @@ fn species_list(network: &Network, list: &str) -> Result<Vec<usize>, Error> {
     Ok(chosen)
 }
 
+/// The default tolerances and those `--tol` adds, loosest first, each once.
+fn tolerance_list(extra: &[f64]) -> Result<Vec<f64>, Error> {
+    let mut tolerances = crate::analysis::DEFAULT_TOLERANCES.to_vec();
+    for &t in extra {
+        tolerances.push(positive_fraction("--tol", t)?);
+    }
+    tolerances.sort_by(|a, b| b.total_cmp(a));
+    tolerances.dedup();
+    Ok(tolerances)
+}
+
 fn positive_fraction(option: &str, x: f64) -> Result<f64, Error> {
     if x > 0.0 && x < 1.0 {
         Ok(x)
@@ -307,12 +318,7 @@ fn run_settings(args: &RunArgs) -> Result<RunSettings, Error> {
             message: "must be a positive concentration in mol/L".into(),
         });
     }
-    let mut tolerances = crate::analysis::DEFAULT_TOLERANCES.to_vec();
-    for &t in &args.tol {
-        tolerances.push(positive_fraction("--tol", t)?);
-    }
-    tolerances.sort_by(|a, b| b.total_cmp(a));
-    tolerances.dedup();
+    let tolerances = tolerance_list(&args.tol)?;
     let time_unit = args.time_unit.into();
     let output_every = match &args.every {
         Some(text) => match duration("--every", text, time_unit)? {

@@ -15,7 +15,7 @@ use crate::sweep::{self, Axis};
 use crate::uncertainty::Sampler;
 use crate::units::TimeUnit;
 
-use super::{duration, positive_fraction, temperature};
+use super::{duration, temperature, tolerance_list};
 
 /// What every study command shares.
 #[derive(Debug, clap::Args)]
@@ -103,12 +103,7 @@ fn prepare(
     total: impl FnOnce(&Network) -> Result<usize, Error>,
 ) -> Result<Prepared, Error> {
     let network = Network::from_file_at(&shared.case, temperature(&shared.temperature)?)?;
-    let mut tolerances = crate::analysis::DEFAULT_TOLERANCES.to_vec();
-    for &t in &shared.tol {
-        tolerances.push(positive_fraction("--tol", t)?);
-    }
-    tolerances.sort_by(|a, b| b.total_cmp(a));
-    tolerances.dedup();
+    let tolerances = tolerance_list(&shared.tol)?;
     let total = total(&network)?;
     let shard = shared.shard.as_deref().map(parse_shard).transpose()?;
     let indices = match shard {
@@ -197,10 +192,17 @@ fn progress_bar(total: usize) -> impl Fn(usize) + Sync {
     }
 }
 
-fn write(prepared: &Prepared, study: &Study, table: &Table, force: bool) -> Result<String, Error> {
-    let files = study_files::render_study(study, table)?;
+/// Runs the members (with a progress bar) and writes the study's folder.
+fn run_members<F>(prepared: &Prepared, member: F, force: bool) -> Result<String, Error>
+where
+    F: Fn(usize) -> (Vec<f64>, Result<Outcome, String>) + Sync,
+{
+    let progress = progress_bar(prepared.indices.len());
+    let study = &prepared.study;
+    let table = study::tabulate(study, &prepared.indices, prepared.threads, member, &progress);
+    let files = study_files::render_study(study, &table)?;
     let written = report::write_all(&prepared.out, &report::as_contents(files), force)?;
-    Ok(study_files::terminal_text(study, table, &written))
+    Ok(study_files::terminal_text(study, &table, &written))
 }
 
 pub(super) fn sweep_command(args: SweepArgs) -> Result<String, Error> {
@@ -222,15 +224,7 @@ pub(super) fn sweep_command(args: SweepArgs) -> Result<String, Error> {
         let outcome = sweep::at_point(network, &axes, &points[i]).and_then(|n| Outcome::of(&n, settings));
         (points[i].clone(), outcome)
     };
-    let progress = progress_bar(prepared.indices.len());
-    let table = study::tabulate(
-        &prepared.study,
-        &prepared.indices,
-        prepared.threads,
-        member,
-        &progress,
-    );
-    write(&prepared, &prepared.study, &table, args.shared.force)
+    run_members(&prepared, member, args.shared.force)
 }
 
 pub(super) fn uncertainty_command(args: UncertaintyArgs) -> Result<String, Error> {
@@ -252,15 +246,7 @@ pub(super) fn uncertainty_command(args: UncertaintyArgs) -> Result<String, Error
             .and_then(|n| Outcome::of(&n, settings));
         (Vec::new(), outcome)
     };
-    let progress = progress_bar(prepared.indices.len());
-    let table = study::tabulate(
-        &prepared.study,
-        &prepared.indices,
-        prepared.threads,
-        member,
-        &progress,
-    );
-    write(&prepared, &prepared.study, &table, args.shared.force)
+    run_members(&prepared, member, args.shared.force)
 }
 
 pub(super) fn merge_command(args: MergeArgs) -> Result<String, Error> {

@@ -343,6 +343,19 @@ pub fn refuse_foreign(dir: &Path) -> Result<(), Error> {
     }
 }
 
+/// The closing lines of a command's terminal text: the files written and the cautions.
+pub fn files_and_cautions(written: &[PathBuf]) -> String {
+    let mut t = String::from("files:\n");
+    for path in written {
+        t += &format!("  {}\n", path.display());
+    }
+    t += "cautions:\n";
+    for c in CAUTIONS {
+        t += &format!("  - {c}\n");
+    }
+    t
+}
+
 /// Seconds with a friendlier unit beside them when the number is large.
 pub use crate::format::{format_duration, significant, trim_percent, with_digits};
 

@@ -196,13 +196,5 @@ pub fn terminal_text(
             first.weight() * 10.0
         );
     }
-    let _ = writeln!(t, "files:");
-    for path in written {
-        let _ = writeln!(t, "  {}", path.display());
-    }
-    let _ = writeln!(t, "cautions:");
-    for c in CAUTIONS {
-        let _ = writeln!(t, "  - {c}");
-    }
-    t
+    t + &super::files_and_cautions(written)
 }

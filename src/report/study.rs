@@ -451,13 +451,5 @@ pub fn terminal_text(study: &Study, table: &Table, written: &[std::path::PathBuf
             let _ = writeln!(t, "  … {} more rows in sweep.csv", table.rows.len() - 25);
         }
     }
-    let _ = writeln!(t, "files:");
-    for path in written {
-        let _ = writeln!(t, "  {}", path.display());
-    }
-    let _ = writeln!(t, "cautions:");
-    for c in CAUTIONS {
-        let _ = writeln!(t, "  - {c}");
-    }
-    t
+    t + &super::files_and_cautions(written)
 }
