@@ -144,8 +144,9 @@ fn sweep_figures(study: &Study, table: &Table) -> Vec<(&'static str, Figure)> {
         .first()
         .and_then(|a| a.split('=').next())
         .unwrap_or("point");
-    let x_label = study.axis_headers.first().cloned().unwrap_or_default();
-    let x_log = x_label.ends_with("_factor");
+    let header = study.axis_headers.first().cloned().unwrap_or_default();
+    let x_log = header.ends_with("_factor");
+    let x_label = axis_label(&header);
     let times: Vec<(String, String)> = study
         .tolerances
         .iter()
@@ -163,6 +164,13 @@ fn sweep_figures(study: &Study, table: &Table) -> Vec<(&'static str, Figure)> {
         // Species used up somewhere (conversion > 0); products that start present go negative.
         .filter(|(_, name)| table.column(name).iter().flatten().any(|&c| c > 0.0))
         .collect();
+    let time_curves = curves(&times);
+    // A log axis only when the times span more than a decade; within one it would show one tick.
+    let (low, high) = time_curves
+        .iter()
+        .flat_map(|s| s.points.iter().map(|p| p.1))
+        .fold((f64::INFINITY, 0.0_f64), |(lo, hi), y| (lo.min(y), hi.max(y)));
+    let y_log = low > 0.0 && high / low > 10.0;
     vec![
         (
             "sweep_times",
@@ -171,8 +179,8 @@ fn sweep_figures(study: &Study, table: &Table) -> Vec<(&'static str, Figure)> {
                 &x_label,
                 "time to equilibrium / s",
                 x_log,
-                true,
-                curves(&times),
+                y_log,
+                time_curves,
             ),
         ),
         (
@@ -187,6 +195,19 @@ fn sweep_figures(study: &Study, table: &Table) -> Vec<(&'static str, Figure)> {
             ),
         ),
     ]
+}
+
+/// A column header as an axis label: `temperature_K` → "temperature / K".
+fn axis_label(header: &str) -> String {
+    if let Some(name) = header.strip_suffix("_mol_per_L") {
+        format!("{name} / (mol/L)")
+    } else if let Some(name) = header.strip_suffix("_factor") {
+        format!("{name} multiplier")
+    } else if let Some(name) = header.strip_suffix("_K") {
+        format!("{name} / K")
+    } else {
+        header.to_string()
+    }
 }
 
 /// The empirical distribution of the time to equilibrium at each tolerance (fraction of all
@@ -253,7 +274,11 @@ fn figure(
         let high = values.iter().copied().fold(f64::NEG_INFINITY, f64::max);
         match (low.is_finite(), log) {
             (false, _) => (1.0, 10.0),
-            (true, true) => (low / 1.5, high * 1.5),
+            // Whole decades, so every log axis has at least two labelled ticks.
+            (true, true) => (
+                10f64.powf(low.log10().floor()),
+                10f64.powf(high.log10().ceil().max(low.log10().floor() + 1.0)),
+            ),
             (true, false) => {
                 let pad = ((high - low) * 0.05).max(1e-12 * high.abs().max(1.0));
                 (low - pad, high + pad)
