@@ -70,9 +70,27 @@ fn main() {
         .filter(|p| p.extension().is_some_and(|e| e == "json") && !p.to_string_lossy().contains(".ref"))
         .collect();
     nets.sort_by_key(|p| std::fs::metadata(p).map(|m| m.len()).unwrap_or(0));
+    let peers = peer_results();
+    match &peers {
+        Some((file, _)) => println!("peer figures from {file} (fastest peer: its median time)"),
+        None => println!(
+            "peer figures not at hand: run ../shared/bench (results/*.jsonl) in this session to print ratios"
+        ),
+    }
     println!(
-        "{:<10} {:>5} {:>9} {:>7} {:>7} {:>6} {:>6} {:>10} {:>10} {:>8} {:>8}",
-        "net", "N", "t_end", "steps", "rhs", "jac", "LU", "seconds", "err_rel", "peak MB", "read s"
+        "{:<10} {:>5} {:>9} {:>7} {:>7} {:>6} {:>6} {:>10} {:>10} {:>8} {:>8} {:>16}",
+        "net",
+        "N",
+        "t_end",
+        "steps",
+        "rhs",
+        "jac",
+        "LU",
+        "seconds",
+        "err_rel",
+        "peak MB",
+        "read s",
+        "fastest peer"
     );
     for path in nets {
         let name = path.file_stem().unwrap().to_string_lossy().into_owned();
@@ -124,7 +142,7 @@ fn main() {
             });
         let s = &solution.stats;
         println!(
-            "{:<10} {:>5} {:>9.1e} {:>7} {:>7} {:>6} {:>6} {:>10.4} {:>10} {:>8} {:>8.3}",
+            "{:<10} {:>5} {:>9.1e} {:>7} {:>7} {:>6} {:>6} {:>10.4} {:>10} {:>8} {:>8.3} {:>16}",
             name,
             network.n_species(),
             t_end,
@@ -135,7 +153,11 @@ fn main() {
             seconds,
             err.map_or("-".into(), |e| format!("{e:.2e}")),
             peak_memory_mb().map_or("-".into(), |m| format!("{m:.0}")),
-            read_seconds
+            read_seconds,
+            peers
+                .as_ref()
+                .and_then(|(_, fastest)| fastest.get(&name))
+                .map_or("-".into(), |(method, t)| format!("{method} {:.1}x", t / seconds))
         );
     }
 }
@@ -170,4 +192,45 @@ fn read_time(network: &Network) -> f64 {
     let started = Instant::now();
     Network::from_text(&text, Path::new("peer.toml")).expect("the written network reads back");
     started.elapsed().as_secs_f64()
+}
+
+/// The newest peer results file (`../shared/bench/results/*.jsonl`, or `KINEQUIL_PEER_RESULTS`)
+/// and, per network, the fastest peer that finished: (method, median seconds).
+fn peer_results() -> Option<(String, std::collections::HashMap<String, (String, f64)>)> {
+    let file = match std::env::var("KINEQUIL_PEER_RESULTS") {
+        Ok(path) => PathBuf::from(path),
+        Err(_) => {
+            let dir = Path::new(env!("CARGO_MANIFEST_DIR")).join("../shared/bench/results");
+            let mut files: Vec<PathBuf> = std::fs::read_dir(dir)
+                .ok()?
+                .filter_map(|e| e.ok().map(|e| e.path()))
+                .filter(|p| p.extension().is_some_and(|e| e == "jsonl"))
+                .collect();
+            files.sort();
+            files.pop()?
+        }
+    };
+    let mut fastest: std::collections::HashMap<String, (String, f64)> = std::collections::HashMap::new();
+    for line in std::fs::read_to_string(&file).ok()?.lines() {
+        let Ok(record) = serde_json::from_str::<serde_json::Value>(line) else {
+            continue;
+        };
+        let (Some(net), Some(method), Some(time)) = (
+            record["net"].as_str(),
+            record["method"].as_str(),
+            record["time_s"].as_f64(),
+        ) else {
+            continue;
+        };
+        if record["status"].as_str().is_some_and(|s| s != "ok") {
+            continue;
+        }
+        let entry = fastest
+            .entry(net.to_string())
+            .or_insert((method.to_string(), time));
+        if time < entry.1 {
+            *entry = (method.to_string(), time);
+        }
+    }
+    Some((file.display().to_string(), fastest))
 }
