@@ -196,7 +196,10 @@ fn read_time(network: &Network) -> f64 {
 
 /// The newest peer results file (`../shared/bench/results/*.jsonl`, or `KINEQUIL_PEER_RESULTS`)
 /// and, per network, the fastest peer that finished: (method, median seconds).
-fn peer_results() -> Option<(String, std::collections::HashMap<String, (String, f64)>)> {
+/// Per network, the fastest peer: (method, median seconds).
+type Fastest = std::collections::HashMap<String, (String, f64)>;
+
+fn peer_results() -> Option<(String, Fastest)> {
     let file = match std::env::var("KINEQUIL_PEER_RESULTS") {
         Ok(path) => PathBuf::from(path),
         Err(_) => {
@@ -210,7 +213,7 @@ fn peer_results() -> Option<(String, std::collections::HashMap<String, (String, 
             files.pop()?
         }
     };
-    let mut fastest: std::collections::HashMap<String, (String, f64)> = std::collections::HashMap::new();
+    let mut fastest = Fastest::new();
     for line in std::fs::read_to_string(&file).ok()?.lines() {
         let Ok(record) = serde_json::from_str::<serde_json::Value>(line) else {
             continue;
