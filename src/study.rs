@@ -212,10 +212,21 @@ pub struct UncertaintySummary {
     /// Members that did not finish: counted and listed, never dropped silently.
     pub failed: Failed,
     pub time_to_equilibrium: Vec<TimeSpread>,
-    /// Per species, the solved equilibrium concentration, mol/L.
+    /// Per species (in file order), the solved equilibrium concentration, mol/L.
+    #[serde(serialize_with = "as_object")]
     pub equilibrium: Vec<(String, Spread)>,
     pub method: &'static str,
     pub cautions: Vec<String>,
+}
+
+/// (name, value) pairs as a JSON object keyed by name, in their order.
+fn as_object<S: serde::Serializer>(pairs: &[(String, Spread)], serializer: S) -> Result<S::Ok, S::Error> {
+    use serde::ser::SerializeMap;
+    let mut map = serializer.serialize_map(Some(pairs.len()))?;
+    for (name, spread) in pairs {
+        map.serialize_entry(name, spread)?;
+    }
+    map.end()
 }
 
 #[derive(Debug, Clone, Serialize)]

@@ -95,6 +95,12 @@ fn time_to_equilibrium_is_log_normal_when_kf_is() {
             got("mean")
         );
     }
+    // K exact: every member has [A]eq = 1/(1 + K) (closed form); the solve converges to 1e-13.
+    let a_eq = &summary["equilibrium"]["A"];
+    for key in ["p05", "p50", "p95"] {
+        let got = a_eq[key].as_f64().unwrap();
+        assert!(rel(got, 1.0 / (1.0 + k)) < 1e-10, "[A]eq {key} {got}");
+    }
 }
 
 #[test]
