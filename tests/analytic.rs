@@ -50,36 +50,33 @@ fn first_order_reversible_follows_the_closed_form() {
     assert!((eq[0] - 1.0 / 3.0).abs() < 1e-9, "equilibrium A = {}", eq[0]);
 }
 
-#[test]
-fn time_to_equilibrium_is_ln_one_over_tol_over_kf_plus_kr() {
-    // Tolerance 1e-5 relative: the crossing is bisected on a Hermite interpolant whose error in c is
-    // below 1e-9 at rtol 1e-9; divided by the slope at the crossing (≥ 2e-3 /s) that is < 1e-6 s on
-    // times of 0.77-2.3 s.
-    let result = run_with(A_TO_B, 1e-9, 1e-14, None);
+/// Every time to equilibrium of A_TO_B within `tolerance` (relative) of ln(1/tol)/(kf + kr).
+fn assert_closed_form_times(result: &kinequil::RunResult, tolerance: f64, what: &str) {
     for s in &result.settling {
         let expected = (1.0 / s.tolerance).ln() / 3.0;
         let got = s.seconds.expect("reached");
         assert!(
-            rel(got, expected) < 1e-5,
-            "tol {}: {got} vs {expected}",
+            rel(got, expected) < tolerance,
+            "{what} tol {}: {got} vs {expected}",
             s.tolerance
         );
     }
 }
 
 #[test]
+fn time_to_equilibrium_is_ln_one_over_tol_over_kf_plus_kr() {
+    // Tolerance 1e-5 relative: the crossing is bisected on a Hermite interpolant whose error in c is
+    // below 1e-9 at rtol 1e-9; divided by the slope at the crossing (≥ 2e-3 /s) that is < 1e-6 s on
+    // times of 0.77-2.3 s.
+    let result = run_with(A_TO_B, 1e-9, 1e-14, None);
+    assert_closed_form_times(&result, 1e-5, "");
+}
+
+#[test]
 fn default_tolerances_give_three_good_digits_of_time_to_equilibrium() {
     // At the default rtol 1e-6 the same times must hold to 1e-3 relative (what a report quotes).
     let result = run_with(A_TO_B, 1e-6, 1e-12, None);
-    for s in &result.settling {
-        let expected = (1.0 / s.tolerance).ln() / 3.0;
-        let got = s.seconds.expect("reached");
-        assert!(
-            rel(got, expected) < 1e-3,
-            "tol {}: {got} vs {expected}",
-            s.tolerance
-        );
-    }
+    assert_closed_form_times(&result, 1e-3, "");
 }
 
 #[test]
@@ -98,15 +95,7 @@ fn both_integration_methods_give_three_good_digits_of_time_to_equilibrium() {
             result.solution.equilibrium_at.is_some() && !result.disagrees,
             "{method:?}"
         );
-        for s in &result.settling {
-            let expected = (1.0 / s.tolerance).ln() / 3.0;
-            let got = s.seconds.expect("reached");
-            assert!(
-                rel(got, expected) < 1e-3,
-                "{method:?} tol {}: {got} vs {expected}",
-                s.tolerance
-            );
-        }
+        assert_closed_form_times(&result, 1e-3, &format!("{method:?}"));
     }
 }
 

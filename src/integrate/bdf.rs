@@ -450,7 +450,6 @@ pub(super) fn integrate(
         h *= factor;
         n_equal_steps = 0;
     };
-    stats.seconds = started.elapsed().as_secs_f64();
     Ok(Solution {
         trajectory,
         stats,

@@ -201,7 +201,8 @@ pub fn integrate(
     c0: &[f64],
     options: &Options,
 ) -> Result<Solution, IntegrationError> {
-    match options.method.chosen(model.n_species()) {
+    let started = Instant::now();
+    let mut solution = match options.method.chosen(model.n_species()) {
         Method::Rodas4 => rodas::integrate(model, laws, c0, options),
         // NDF failing (its step collapsing on a pathological network) is not the end: the
         // one-step method starts again from the beginning, as `Auto` promises an answer
@@ -210,7 +211,10 @@ pub fn integrate(
             bdf::integrate(model, laws, c0, options).or_else(|_| rodas::integrate(model, laws, c0, options))
         }
         _ => bdf::integrate(model, laws, c0, options),
-    }
+    }?;
+    // Wall time of the whole integration, a fallback included.
+    solution.stats.seconds = started.elapsed().as_secs_f64();
+    Ok(solution)
 }
 
 /// Which integration method runs.

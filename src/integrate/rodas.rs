@@ -159,7 +159,6 @@ pub(super) fn integrate(
         h *= if rejected_last { grow.min(1.0) } else { grow };
         rejected_last = false;
     };
-    stats.seconds = started.elapsed().as_secs_f64();
     Ok(Solution {
         trajectory,
         stats,
