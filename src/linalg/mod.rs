@@ -288,8 +288,9 @@ mod tests {
         let pattern = Pattern::from_entries(n, entries);
         let mut values = vec![0.0; pattern.nnz()];
         for col in 0..n {
-            for k in pattern.col_ptr[col]..pattern.col_ptr[col + 1] {
-                values[k] = if pattern.row_idx[k] == col { diagonal } else { 2.0 * next() - 1.0 };
+            let range = pattern.col_ptr[col]..pattern.col_ptr[col + 1];
+            for (value, &row) in values[range.clone()].iter_mut().zip(&pattern.row_idx[range]) {
+                *value = if row == col { diagonal } else { 2.0 * next() - 1.0 };
             }
         }
         (pattern, values)
@@ -311,7 +312,10 @@ mod tests {
         let (pattern, values) = random_system(200, 6.0);
         let b: Vec<f64> = (0..200).map(|i| (i as f64).sin()).collect();
         let mut ordered = LinearSolver::new(pattern.clone(), Some(false));
-        assert!(matches!(ordered.kind, Kind::Ordered(_)), "a small sparse system takes the fixed order");
+        assert!(
+            matches!(ordered.kind, Kind::Ordered(_)),
+            "a small sparse system takes the fixed order"
+        );
         let mut dense = LinearSolver::new(pattern.clone(), Some(true));
         for solver in [&mut ordered, &mut dense] {
             solver.factor(&values).unwrap();
@@ -319,7 +323,10 @@ mod tests {
             solver.solve(&mut x).unwrap();
             assert!(residual(&pattern, &values, &x, &b) < 1e-12);
         }
-        assert!(matches!(ordered.kind, Kind::Ordered(_)), "no pivot failed on a dominant diagonal");
+        assert!(
+            matches!(ordered.kind, Kind::Ordered(_)),
+            "no pivot failed on a dominant diagonal"
+        );
     }
 
     #[test]
@@ -331,7 +338,10 @@ mod tests {
         let mut solver = LinearSolver::new(pattern.clone(), Some(false));
         match solver.factor(&values) {
             Ok(()) => {
-                assert!(matches!(solver.kind, Kind::Pivoting(_)), "the fixed order gave up");
+                assert!(
+                    matches!(solver.kind, Kind::Pivoting(_)),
+                    "the fixed order gave up"
+                );
                 let mut x = b.clone();
                 solver.solve(&mut x).unwrap();
                 assert!(residual(&pattern, &values, &x, &b) < 1e-8);
