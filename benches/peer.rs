@@ -94,7 +94,7 @@ fn main() {
     );
     for path in nets {
         let name = path.file_stem().unwrap().to_string_lossy().into_owned();
-        if !filter.is_empty() && !filter.iter().any(|f| name == *f) {
+        if !filter.is_empty() && !filter.contains(&name) {
             continue;
         }
         let json: serde_json::Value = serde_json::from_str(&std::fs::read_to_string(&path).unwrap()).unwrap();
