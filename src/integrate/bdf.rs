@@ -381,10 +381,18 @@ pub(super) fn integrate(
         n_equal_steps += 1;
         iteration.jac_current = false;
         before.copy_from_slice(&y);
-        y.copy_from_slice(&work.y);
+        // The projection's change joins the step's correction, so that the differences below
+        // (and the next predictor) carry it: a change to y alone would be undone by the next
+        // predictor, step after step, and hold the solution off equilibrium at the level of
+        // the linear solves' rounding (seen as a 1e-8 floor on a 1000-species network).
         if let Some(projection) = &projection {
-            projection.apply(&mut y, &options.atol);
+            work.error.copy_from_slice(&work.y);
+            projection.apply(&mut work.y, &options.atol);
+            for ((d, y), unprojected) in work.d.iter_mut().zip(&work.y).zip(&work.error) {
+                *d += y - unprojected;
+            }
         }
+        y.copy_from_slice(&work.y);
         worst_negative = worst_negative.min(negative);
         {
             let (low, high) = d.split_at_mut(order + 2);

@@ -1,15 +1,15 @@
 //! Sparse matrix structure and the LU solves the implicit integrator needs.
 //!
 //! Matrices are stored column-compressed (CSC) from the start; small systems are factored
-//! densely, larger ones by an LU on a fill-reducing order fixed once per pattern
-//! ([`ordered`]), with faer's sparse LU with partial pivoting as the fallback when a pivot of
+//! densely, larger ones by a multifrontal LU on a fill-reducing order fixed once per pattern
+//! ([`frontal`]), with faer's sparse LU with partial pivoting as the fallback when a pivot of
 //! that order proves unstable.
 
 mod dense;
-mod ordered;
+mod frontal;
 
 use dense::DenseLu;
-use ordered::OrderedLu;
+use frontal::FrontalLu;
 
 use faer::dyn_stack::{MemBuffer, MemStack};
 use faer::sparse::linalg::lu::{factorize_symbolic_lu, LuRef, NumericLu, SymbolicLu};
@@ -18,12 +18,6 @@ use faer::{Conj, Par};
 
 /// Above this many unknowns the sparse LU is used (below it, dense LU is faster).
 pub const DENSE_LIMIT: usize = 60;
-
-/// Above this many multiply-adds per factorisation the supernodal LU's dense kernels beat the
-/// entry-by-entry elimination of the fixed order (measured on the peer networks: 100 species,
-/// 15 thousand multiply-adds, 6.3 ms against 10.4 ms per run; 1000 species, 2.8 million,
-/// 0.67 s against 0.63 s; 5000 species, 110 million, 18 s against 9.4 s).
-const ORDERED_LIMIT: usize = 1_000_000;
 
 /// Column-compressed sparsity pattern of a square matrix; row indices sorted within columns.
 #[derive(Debug, Clone, PartialEq)]
@@ -91,9 +85,9 @@ pub struct LinearSolver {
 
 enum Kind {
     Dense(DenseLu),
-    /// LU on an order fixed once for the pattern; replaced by `Pivoting` for good when one of
-    /// its pivots proves unstable.
-    Ordered(Box<OrderedLu>),
+    /// Multifrontal LU on an order fixed once for the pattern; replaced by `Pivoting` for good
+    /// when one of its pivots proves unstable.
+    Frontal(Box<FrontalLu>),
     /// faer's sparse LU with partial pivoting, its numeric storage and workspaces kept between
     /// factorisations so that a step allocates nothing.
     Pivoting(Box<SparseLu>),
@@ -118,9 +112,9 @@ impl LinearSolver {
         let kind = if dense {
             Kind::Dense(DenseLu::new(pattern.n))
         } else {
-            match OrderedLu::new(&pattern) {
-                Some(lu) if lu.multiply_adds() <= ORDERED_LIMIT => Kind::Ordered(Box::new(lu)),
-                _ => pivoting(&pattern),
+            match FrontalLu::new(&pattern) {
+                Some(lu) => Kind::Frontal(Box::new(lu)),
+                None => pivoting(&pattern),
             }
         };
         LinearSolver { pattern, kind }
@@ -132,8 +126,8 @@ impl LinearSolver {
 
     /// Factors the matrix whose values (on the pattern) are given.
     pub fn factor(&mut self, values: &[f64]) -> Result<(), Singular> {
-        if let Kind::Ordered(lu) = &mut self.kind {
-            if lu.factor(&self.pattern, values).is_ok() {
+        if let Kind::Frontal(lu) = &mut self.kind {
+            if lu.factor(values).is_ok() {
                 return Ok(());
             }
             self.kind = pivoting(&self.pattern);
@@ -168,7 +162,9 @@ impl LinearSolver {
                     .map_err(|_| Singular)?;
                 *factored = true;
             }
-            Kind::Ordered(_) => unreachable!("an unstable ordered LU was replaced above"),
+            Kind::Frontal(_) => {
+                unreachable!("an unstable fixed-order LU was replaced above")
+            }
         }
         Ok(())
     }
@@ -177,7 +173,7 @@ impl LinearSolver {
     pub fn solve(&mut self, b: &mut [f64]) -> Result<(), Singular> {
         match &mut self.kind {
             Kind::Dense(lu) if lu.factored => lu.solve(b),
-            Kind::Ordered(lu) => {
+            Kind::Frontal(lu) => {
                 if !lu.solve(b) {
                     return Err(Singular);
                 }
@@ -266,9 +262,9 @@ mod tests {
         }
     }
 
-    /// A structurally symmetric random sparse matrix: a ring plus random chords, values in
-    /// [-1, 1), and `diagonal` on the diagonal (SplitMix64 stream, so the case is fixed).
-    fn random_system(n: usize, diagonal: f64) -> (Pattern, Vec<f64>) {
+    /// A random sparse matrix: a ring plus random chords (both ways when `symmetric`), values
+    /// in [-1, 1), and `diagonal` on the diagonal (SplitMix64 stream, so the case is fixed).
+    fn random_system(n: usize, diagonal: f64, symmetric: bool) -> (Pattern, Vec<f64>) {
         let mut state = 7_u64;
         let mut next = move || {
             state = state.wrapping_add(0x9E37_79B9_7F4A_7C15);
@@ -282,7 +278,9 @@ mod tests {
             let chord = (next() * n as f64) as usize;
             for j in [(i + 1) % n, chord] {
                 entries.push((i, j));
-                entries.push((j, i));
+                if symmetric {
+                    entries.push((j, i));
+                }
             }
         }
         let pattern = Pattern::from_entries(n, entries);
@@ -305,35 +303,40 @@ mod tests {
     }
 
     #[test]
-    fn the_fixed_order_lu_solves_what_the_dense_lu_solves() {
+    fn the_multifrontal_lu_solves_what_the_dense_lu_solves() {
         // Diagonal 6 against at most 4 off-diagonal entries of size < 1 per column: diagonally
         // dominant, condition number below 10, so both residuals sit near rounding (1e-15);
         // 1e-12 leaves room for the growth of a few hundred operations per entry.
-        let (pattern, values) = random_system(200, 6.0);
-        let b: Vec<f64> = (0..200).map(|i| (i as f64).sin()).collect();
-        let mut ordered = LinearSolver::new(pattern.clone(), Some(false));
-        assert!(
-            matches!(ordered.kind, Kind::Ordered(_)),
-            "a small sparse system takes the fixed order"
-        );
-        let mut dense = LinearSolver::new(pattern.clone(), Some(true));
-        for solver in [&mut ordered, &mut dense] {
-            solver.factor(&values).unwrap();
-            let mut x = b.clone();
-            solver.solve(&mut x).unwrap();
-            assert!(residual(&pattern, &values, &x, &b) < 1e-12);
+        for (n, symmetric) in [(200, true), (200, false), (1500, true)] {
+            let (pattern, values) = random_system(n, 6.0, symmetric);
+            let b: Vec<f64> = (0..n).map(|i| (i as f64).sin()).collect();
+            let mut frontal = LinearSolver::new(pattern.clone(), Some(false));
+            assert!(
+                matches!(frontal.kind, Kind::Frontal(_)),
+                "a sparse system takes the fixed order"
+            );
+            let mut dense = LinearSolver::new(pattern.clone(), Some(true));
+            for solver in [&mut frontal, &mut dense] {
+                solver.factor(&values).unwrap();
+                let mut x = b.clone();
+                solver.solve(&mut x).unwrap();
+                assert!(
+                    residual(&pattern, &values, &x, &b) < 1e-12,
+                    "n {n}, symmetric {symmetric}"
+                );
+            }
+            assert!(
+                matches!(frontal.kind, Kind::Frontal(_)),
+                "no pivot failed on a dominant diagonal"
+            );
         }
-        assert!(
-            matches!(ordered.kind, Kind::Ordered(_)),
-            "no pivot failed on a dominant diagonal"
-        );
     }
 
     #[test]
     fn a_zero_pivot_hands_over_to_the_pivoting_lu() {
         // A zero diagonal gives the fixed order a zero first pivot; the pivoting LU must take
         // over and still solve (the matrix is a permuted, well-conditioned one).
-        let (pattern, values) = random_system(200, 0.0);
+        let (pattern, values) = random_system(200, 0.0, true);
         let b: Vec<f64> = (0..200).map(|i| 1.0 + i as f64).collect();
         let mut solver = LinearSolver::new(pattern.clone(), Some(false));
         match solver.factor(&values) {
