@@ -83,6 +83,8 @@ pub struct FrontalLu {
     stack: Vec<f64>,
     /// Reordered right-hand side during a solve.
     work: Vec<f64>,
+    /// A supernode's contribution to the rows below it during a solve.
+    sum: Vec<f64>,
     factored: bool,
 }
 
@@ -190,6 +192,7 @@ impl FrontalLu {
             upper: vec![0.0; upper_len],
             front: vec![0.0; largest * largest],
             work: vec![0.0; n],
+            sum: vec![0.0; largest],
             factored: false,
         })
     }
@@ -242,10 +245,13 @@ impl FrontalLu {
         for (new, &old) in self.order.iter().enumerate() {
             x[new] = b[old];
         }
-        // Forward: supernodes in column order, each its unit lower block then the rows below.
+        // Forward: supernodes in column order, each its unit lower block, then the rows below
+        // summed densely and scattered once.
         for node in &self.supernodes {
             let (size, width) = (node.size(), node.width());
             let block = &self.lower[node.lower_at..node.lower_at + size * width];
+            let sum = &mut self.sum[..node.below.len()];
+            sum.fill(0.0);
             for k in 0..width {
                 let xk = x[node.first + k];
                 if xk == 0.0 {
@@ -255,9 +261,12 @@ impl FrontalLu {
                 for i in k + 1..width {
                     x[node.first + i] -= column[i] * xk;
                 }
-                for (&row, &l) in node.below.iter().zip(&column[width..]) {
-                    x[row] -= l * xk;
+                for (s, &l) in sum.iter_mut().zip(&column[width..]) {
+                    *s += l * xk;
                 }
+            }
+            for (&row, &s) in node.below.iter().zip(sum.iter()) {
+                x[row] -= s;
             }
         }
         // Backward: reverse column order, the rows below first, then the upper block.

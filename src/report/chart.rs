@@ -146,17 +146,18 @@ impl Frame {
 
 /// The species with the largest change over the run, at most [`MAX_CURVES`], in file order.
 fn largest_changes(result: &RunResult) -> Vec<usize> {
-    let states = &result.solution.trajectory.states;
-    let change = |i: usize| {
-        let (lo, hi) = states
-            .iter()
-            .fold((f64::INFINITY, f64::NEG_INFINITY), |(lo, hi), s| {
-                (lo.min(s[i]), hi.max(s[i]))
-            });
-        hi - lo
-    };
-    let mut order: Vec<usize> = (0..result.network.n_species()).collect();
-    order.sort_by(|&a, &b| change(b).total_cmp(&change(a)));
+    let n = result.network.n_species();
+    let mut low = vec![f64::INFINITY; n];
+    let mut high = vec![f64::NEG_INFINITY; n];
+    for state in &result.solution.trajectory.states {
+        for (i, &c) in state.iter().enumerate() {
+            low[i] = low[i].min(c);
+            high[i] = high[i].max(c);
+        }
+    }
+    let change: Vec<f64> = high.iter().zip(&low).map(|(h, l)| h - l).collect();
+    let mut order: Vec<usize> = (0..n).collect();
+    order.sort_by(|&a, &b| change[b].total_cmp(&change[a]));
     order.truncate(MAX_CURVES);
     order.sort_unstable();
     order

@@ -59,15 +59,29 @@ fn write_state_table(result: &RunResult, times: &[f64], out: &mut dyn std::io::W
         header.push("p_total [bar]".into());
     }
     writer.write_record(&header).map_err(std::io::Error::other)?;
+    // One reused buffer for every field: a large network's table has millions of them.
+    let mut field = String::new();
+    let mut write = |writer: &mut csv::Writer<_>, value: f64| {
+        use std::fmt::Write;
+        field.clear();
+        write!(field, "{value:.9e}").expect("writing to a String");
+        writer.write_field(&field).map_err(std::io::Error::other)
+    };
     for &t in times {
         let state = result.solution.trajectory.state_at(t);
-        let mut row = vec![format!("{:.9e}", t / t_scale)];
-        row.extend(state.iter().map(|c| format!("{:.9e}", c / c_scale)));
-        if let Some((partial, total)) = result.pressures_bar(&state) {
-            row.extend(partial.iter().map(|(_, p)| format!("{p:.9e}")));
-            row.push(format!("{total:.9e}"));
+        write(&mut writer, t / t_scale)?;
+        for c in &state {
+            write(&mut writer, c / c_scale)?;
         }
-        writer.write_record(&row).map_err(std::io::Error::other)?;
+        if let Some((partial, total)) = result.pressures_bar(&state) {
+            for (_, p) in &partial {
+                write(&mut writer, *p)?;
+            }
+            write(&mut writer, total)?;
+        }
+        writer
+            .write_record(None::<&[u8]>)
+            .map_err(std::io::Error::other)?;
     }
     writer.flush()
 }
