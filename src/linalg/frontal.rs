@@ -19,7 +19,7 @@
 //! an LU with partial pivoting.
 
 use faer::linalg::matmul::matmul;
-use faer::linalg::triangular_solve::solve_unit_lower_triangular_in_place;
+use faer::linalg::triangular_solve::{solve_lower_triangular_in_place, solve_unit_lower_triangular_in_place};
 use faer::reborrow::{Reborrow, ReborrowMut};
 use faer::sparse::linalg::cholesky::{
     factorize_symbolic_cholesky, CholeskySymbolicParams, SymbolicCholeskyRaw, SymmetricOrdering,
@@ -299,26 +299,28 @@ impl FrontalLu {
 }
 
 /// Eliminates the first `width` pivots of the column-major `size` × `size` frontal matrix in
-/// place: L and U of the pivot block and the panel, then the Schur complement by one matrix
-/// product.
+/// place: LU of the pivot block, the panels by triangular solves, then the Schur complement by
+/// one matrix product. A pivot passes the threshold test when no multiplier in its column
+/// exceeds 1/PIVOT_THRESHOLD (|l_ik| = |a_ik| / |u_kk|).
 fn factor_front(front: &mut [f64], size: usize, width: usize) -> Result<(), UnstablePivot> {
+    let bound = 1.0 / PIVOT_THRESHOLD;
     for k in 0..width {
         let pivot = front[k + k * size];
-        let largest_below = front[k * size + k + 1..(k + 1) * size]
-            .iter()
-            .fold(0.0_f64, |m, v| m.max(v.abs()));
-        if !pivot.is_finite() || pivot == 0.0 || pivot.abs() < PIVOT_THRESHOLD * largest_below {
+        if !pivot.is_finite() || pivot == 0.0 {
             return Err(UnstablePivot);
         }
-        for v in &mut front[k * size + k + 1..(k + 1) * size] {
+        for v in &mut front[k * size + k + 1..k * size + width] {
             *v /= pivot;
+            if v.abs() > bound {
+                return Err(UnstablePivot);
+            }
         }
         for j in k + 1..width {
             let u = front[k + j * size];
             if u != 0.0 {
                 let (left, right) = front.split_at_mut(j * size);
-                let column = &left[k * size..(k + 1) * size];
-                for (x, &l) in right[k + 1..size].iter_mut().zip(&column[k + 1..]) {
+                let column = &left[k * size..k * size + width];
+                for (x, &l) in right[k + 1..width].iter_mut().zip(&column[k + 1..]) {
                     *x -= l * u;
                 }
             }
@@ -328,7 +330,17 @@ fn factor_front(front: &mut [f64], size: usize, width: usize) -> Result<(), Unst
         return Ok(());
     }
     let matrix = MatMut::from_column_major_slice_mut(front, size, size);
-    let (pivots, mut right_of, below, mut rest) = matrix.split_at_mut(width, width);
+    let (pivots, mut right_of, mut below, mut rest) = matrix.split_at_mut(width, width);
+    // L21 U11 = A21, solved as U11ᵀ L21ᵀ = A21ᵀ; U12 = L11⁻¹ A12.
+    solve_lower_triangular_in_place(pivots.rb().transpose(), below.rb_mut().transpose_mut(), Par::Seq);
+    for j in 0..width {
+        for i in 0..size - width {
+            let l = below[(i, j)];
+            if !(l.abs() <= bound) {
+                return Err(UnstablePivot);
+            }
+        }
+    }
     solve_unit_lower_triangular_in_place(pivots.rb(), right_of.rb_mut(), Par::Seq);
     matmul(
         rest.rb_mut(),
