@@ -336,7 +336,7 @@ fn factor_front(front: &mut [f64], size: usize, width: usize) -> Result<(), Unst
     for j in 0..width {
         for i in 0..size - width {
             let l = below[(i, j)];
-            if !(l.abs() <= bound) {
+            if !l.is_finite() || l.abs() > bound {
                 return Err(UnstablePivot);
             }
         }
