@@ -110,11 +110,15 @@ pub struct Stats {
 
 /// The integrated trajectory at every accepted step, with derivatives for Hermite
 /// interpolation between steps.
+///
+/// Derivatives are kept in single precision: they enter the interpolant only multiplied by the
+/// step length, where their relative rounding (6e-8) is far below the integration tolerance,
+/// and they are half of a large network's memory otherwise.
 #[derive(Debug, Clone, Default)]
 pub struct Trajectory {
     pub times: Vec<f64>,
     pub states: Vec<Vec<f64>>,
-    pub derivatives: Vec<Vec<f64>>,
+    pub derivatives: Vec<Vec<f32>>,
 }
 
 impl Stats {
@@ -135,7 +139,14 @@ impl Trajectory {
     fn push(&mut self, t: f64, state: &[f64], derivative: &[f64]) {
         self.times.push(t);
         self.states.push(state.to_vec());
-        self.derivatives.push(derivative.to_vec());
+        // Clamped so that a derivative beyond single range stays finite (it then bends the
+        // interpolant on that one step instead of making it infinite).
+        self.derivatives.push(
+            derivative
+                .iter()
+                .map(|&d| d.clamp(-f32::MAX as f64, f32::MAX as f64) as f32)
+                .collect(),
+        );
     }
 
     pub fn end_time(&self) -> f64 {
@@ -184,7 +195,10 @@ impl Trajectory {
         let h = t1 - t0;
         let s = ((t - t0) / h).clamp(0.0, 1.0);
         let (y0, y1) = (self.states[k][i], self.states[k + 1][i]);
-        let (d0, d1) = (self.derivatives[k][i] * h, self.derivatives[k + 1][i] * h);
+        let (d0, d1) = (
+            f64::from(self.derivatives[k][i]) * h,
+            f64::from(self.derivatives[k + 1][i]) * h,
+        );
         let s2 = s * s;
         let s3 = s2 * s;
         (2.0 * s3 - 3.0 * s2 + 1.0) * y0

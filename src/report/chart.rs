@@ -166,28 +166,35 @@ fn largest_changes(result: &RunResult) -> Vec<usize> {
 /// From the first time any species has moved 1 % of its range to the last time any is still
 /// more than 1 % of its range from its final value.
 fn active_span(result: &RunResult, times: &[f64]) -> (f64, f64) {
+    // Two passes over the times, one state at a time (a large network's states at every
+    // output time would not fit in a modest memory): the ranges first, then the span.
     let trajectory = &result.solution.trajectory;
-    let states: Vec<Vec<f64>> = times.iter().map(|&t| trajectory.state_at(t)).collect();
-    let (first, last) = (&states[0], &states[states.len() - 1]);
-    let n = first.len();
-    let range: Vec<f64> = (0..n)
-        .map(|i| {
-            let (lo, hi) = states
-                .iter()
-                .fold((f64::INFINITY, f64::NEG_INFINITY), |(lo, hi), s| {
-                    (lo.min(s[i]), hi.max(s[i]))
-                });
-            hi - lo
-        })
-        .collect();
-    let moved = |s: &Vec<f64>| (0..n).any(|i| range[i] > 0.0 && (s[i] - first[i]).abs() > 0.01 * range[i]);
-    let unsettled = |s: &Vec<f64>| (0..n).any(|i| range[i] > 0.0 && (s[i] - last[i]).abs() > 0.01 * range[i]);
-    let start = states.iter().position(moved).map_or(times[0], |k| times[k]);
-    let end = states
-        .iter()
-        .rposition(unsettled)
-        .map_or(times[times.len() - 1], |k| times[(k + 1).min(times.len() - 1)]);
-    (start, end)
+    let first = trajectory.state_at(times[0]);
+    let last = trajectory.state_at(times[times.len() - 1]);
+    let (mut low, mut high) = (first.clone(), first.clone());
+    for &t in times {
+        for (i, c) in trajectory.state_at(t).into_iter().enumerate() {
+            low[i] = low[i].min(c);
+            high[i] = high[i].max(c);
+        }
+    }
+    let range: Vec<f64> = high.iter().zip(&low).map(|(h, l)| h - l).collect();
+    let away = |s: &[f64], from: &[f64]| {
+        (0..s.len()).any(|i| range[i] > 0.0 && (s[i] - from[i]).abs() > 0.01 * range[i])
+    };
+    let mut start = None;
+    let mut last_unsettled = None;
+    for (k, &t) in times.iter().enumerate() {
+        let state = trajectory.state_at(t);
+        if start.is_none() && away(&state, &first) {
+            start = Some(t);
+        }
+        if away(&state, &last) {
+            last_unsettled = Some(k);
+        }
+    }
+    let end = last_unsettled.map_or(times[times.len() - 1], |k| times[(k + 1).min(times.len() - 1)]);
+    (start.unwrap_or(times[0]), end)
 }
 
 fn concentrations(result: &RunResult, frame: &Frame) -> Figure {

@@ -117,7 +117,10 @@ pub fn render_run<'a>(
             "trajectory.csv".into(),
             Content::Stream(Box::new(move |out| table::write_trajectory_csv(result, out))),
         ),
-        ("rates.csv".into(), table::rates_csv(result).into_bytes().into()),
+        (
+            "rates.csv".into(),
+            Content::Stream(Box::new(move |out| table::write_rates_csv(result, out))),
+        ),
         (
             "summary_row.csv".into(),
             table::summary_row_csv(result, &sha).into_bytes().into(),

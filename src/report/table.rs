@@ -59,25 +59,18 @@ fn write_state_table(result: &RunResult, times: &[f64], out: &mut dyn std::io::W
         header.push("p_total [bar]".into());
     }
     writer.write_record(&header).map_err(std::io::Error::other)?;
-    // One reused buffer for every field: a large network's table has millions of them.
-    let mut field = String::new();
-    let mut write = |writer: &mut csv::Writer<_>, value: f64| {
-        use std::fmt::Write;
-        field.clear();
-        write!(field, "{value:.9e}").expect("writing to a String");
-        writer.write_field(&field).map_err(std::io::Error::other)
-    };
+    let mut fields = Fields::default();
     for &t in times {
         let state = result.solution.trajectory.state_at(t);
-        write(&mut writer, t / t_scale)?;
+        fields.number(&mut writer, t / t_scale)?;
         for c in &state {
-            write(&mut writer, c / c_scale)?;
+            fields.number(&mut writer, c / c_scale)?;
         }
         if let Some((partial, total)) = result.pressures_bar(&state) {
             for (_, p) in &partial {
-                write(&mut writer, *p)?;
+                fields.number(&mut writer, *p)?;
             }
-            write(&mut writer, total)?;
+            fields.number(&mut writer, total)?;
         }
         writer
             .write_record(None::<&[u8]>)
@@ -132,12 +125,12 @@ pub fn busiest_steps(peaks: &[f64], limit: usize, only: impl Fn(usize) -> bool) 
 
 /// `rates.csv`: forward, reverse and net rate and Q/K of every step (or of the
 /// [`MAX_RATE_STEPS`] busiest) at the output times.
-pub fn rates_csv(result: &RunResult) -> String {
+pub fn write_rates_csv(result: &RunResult, out: &mut dyn std::io::Write) -> std::io::Result<()> {
     let times = output_times(result);
     let steps = busiest_steps(&peak_forward_rates(result, &times), MAX_RATE_STEPS, |_| true);
     let (forward, reverse) = step_rates(result, &times, &steps);
     let t_unit = result.settings.units.time;
-    let mut writer = csv::Writer::from_writer(Vec::new());
+    let mut writer = csv::Writer::from_writer(out);
     let mut header = vec![format!("time [{}]", t_unit.symbol())];
     for j in steps.iter().map(|j| j + 1) {
         header.push(format!("step {j} forward [mol/(L s)]"));
@@ -145,27 +138,42 @@ pub fn rates_csv(result: &RunResult) -> String {
         header.push(format!("step {j} net [mol/(L s)]"));
         header.push(format!("step {j} Q/K"));
     }
-    let _ = writer.write_record(&header);
+    writer.write_record(&header).map_err(std::io::Error::other)?;
+    let mut fields = Fields::default();
     for (k, t) in times.iter().enumerate() {
-        let mut row = vec![format!("{:.9e}", t / t_unit.seconds())];
+        fields.number(&mut writer, t / t_unit.seconds())?;
         for &j in &steps {
             let (f, r) = (forward[j][k], reverse[j][k]);
-            let reversible = result.network.reactions[j].reversible;
-            let q_over_k = if reversible && f > 0.0 {
-                format!("{:.9e}", r / f)
+            fields.number(&mut writer, f)?;
+            fields.number(&mut writer, r)?;
+            fields.number(&mut writer, f - r)?;
+            if result.network.reactions[j].reversible && f > 0.0 {
+                fields.number(&mut writer, r / f)?;
             } else {
-                String::new()
-            };
-            row.extend([
-                format!("{f:.9e}"),
-                format!("{r:.9e}"),
-                format!("{:.9e}", f - r),
-                q_over_k,
-            ]);
+                writer.write_field("").map_err(std::io::Error::other)?;
+            }
         }
-        let _ = writer.write_record(&row);
+        writer
+            .write_record(None::<&[u8]>)
+            .map_err(std::io::Error::other)?;
     }
-    String::from_utf8(writer.into_inner().unwrap_or_default()).unwrap_or_default()
+    writer.flush()
+}
+
+/// Writes numbers as CSV fields with ten significant digits, formatted in one reused buffer: a
+/// large network's tables have millions of fields.
+#[derive(Default)]
+struct Fields {
+    buffer: String,
+}
+
+impl Fields {
+    fn number<W: std::io::Write>(&mut self, writer: &mut csv::Writer<W>, value: f64) -> std::io::Result<()> {
+        use std::fmt::Write;
+        self.buffer.clear();
+        write!(self.buffer, "{value:.9e}").expect("writing to a String");
+        writer.write_field(&self.buffer).map_err(std::io::Error::other)
+    }
 }
 
 /// `summary_row.csv`: one header and one row, with columns in a fixed order, so rows of many
