@@ -68,7 +68,7 @@ fn full_run(network: &Network) -> Option<f64> {
     }
     for r in &network.reactions {
         text += &format!(
-            "\n[[reaction]]\nequation = \"{}\"\nkf = {}\nK = {}\n",
+            "\n[[reaction]]\nscheme = \"{}\"\nkf = {}\nK = {}\n",
             r.equation,
             r.kf,
             r.kf / r.kr

@@ -184,7 +184,7 @@ fn read_time(network: &Network) -> f64 {
         text += &format!("{} = {}\n", s.name, s.initial);
     }
     for r in &network.reactions {
-        text += &format!("\n[[reaction]]\nequation = \"{}\"\nkf = {}\n", r.equation, r.kf);
+        text += &format!("\n[[reaction]]\nscheme = \"{}\"\nkf = {}\n", r.equation, r.kf);
         if r.reversible {
             text += &format!("kr = {}\n", r.kr);
         }

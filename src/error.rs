@@ -72,6 +72,9 @@ pub enum Error {
          choose another --out directory or pass --force to replace them"
     )]
     OutputExists { path: PathBuf, existing: String },
+    /// A single file a command writes (such as --write-corrected's) exists already.
+    #[error("{path} exists; give another file name or pass --force to replace it")]
+    FileExists { path: PathBuf },
     #[error(transparent)]
     Integration(#[from] IntegrationError),
     #[error("bad option {option}: {message}")]
@@ -88,6 +91,7 @@ impl Error {
         match self {
             Error::Input(_)
             | Error::OutputExists { .. }
+            | Error::FileExists { .. }
             | Error::Option { .. }
             | Error::Setting { .. }
             | Error::Read { .. } => 2,

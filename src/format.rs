@@ -102,3 +102,12 @@ pub fn finite_or_word(x: f64) -> String {
         format!("{x:e}")
     }
 }
+
+/// A count with its noun, singular for one: "1 finding", "3 findings" (nouns here all take -s).
+pub fn count(n: usize, noun: &str) -> String {
+    if n == 1 {
+        format!("1 {noun}")
+    } else {
+        format!("{n} {noun}s")
+    }
+}

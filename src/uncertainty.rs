@@ -150,7 +150,7 @@ mod tests {
 
     fn cycle(text_uncertainty: &str) -> Network {
         let text = format!(
-            "[species]\nA = 1.0\nB = 0.0\nC = 0.0\n\n[[reaction]]\nequation = \"A <=> B\"\nkf = 1.0\nK = 2.0\n{text_uncertainty}\n\n[[reaction]]\nequation = \"B <=> C\"\nkf = 1.0\nK = 3.0\n\n[[reaction]]\nequation = \"A <=> C\"\nkf = 1.0\nK = 6.0\n"
+            "[species]\nA = 1.0\nB = 0.0\nC = 0.0\n\n[[reaction]]\nscheme = \"A <=> B\"\nkf = 1.0\nK = 2.0\n{text_uncertainty}\n\n[[reaction]]\nscheme = \"B <=> C\"\nkf = 1.0\nK = 3.0\n\n[[reaction]]\nscheme = \"A <=> C\"\nkf = 1.0\nK = 6.0\n"
         );
         Network::from_text(&text, std::path::Path::new("cycle.toml")).unwrap()
     }

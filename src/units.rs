@@ -93,6 +93,11 @@ pub struct Quantity {
     pub dimension: Dimension,
 }
 
+/// The units [`unit`] knows, grouped by kind, for messages.
+pub const KNOWN_UNITS: &str =
+    "time s, min, h, d; amount mol, mmol, umol, kmol; volume L, mL, m^3, dm^3, cm^3; \
+concentration M, mM, uM; temperature K, degC; pressure Pa, kPa, MPa, bar, mbar, atm; energy J, kJ, cal, kcal";
+
 /// Units known by name: (symbol, dimension, factor to internal units, offset for temperatures).
 fn unit(symbol: &str) -> Option<(Dimension, f64)> {
     use Dimension as D;
@@ -372,7 +377,12 @@ impl Parser<'_> {
             }
             Some(Token::Name(name)) => {
                 self.pos += 1;
-                unit(name).ok_or_else(|| format!("unknown unit `{name}` in `{}`", self.text))
+                unit(name).ok_or_else(|| {
+                    format!(
+                        "unknown unit `{name}` in `{}`; known units: {KNOWN_UNITS} (combined with *, / and ^, as in \"L/(mol*s)\")",
+                        self.text
+                    )
+                })
             }
             Some(other) => Err(format!("unexpected `{other}` in unit `{}`", self.text)),
             None => Err(format!("unit `{}` ends too early", self.text)),

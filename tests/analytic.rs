@@ -14,7 +14,7 @@ A = 1.0
 B = 0.0
 
 [[reaction]]
-equation = "A <=> B"
+scheme = "A <=> B"
 kf = 2.0
 kr = 1.0
 "#;
@@ -113,12 +113,12 @@ B = 0.0
 C = 0.0
 
 [[reaction]]
-equation = "A <=> B"
+scheme = "A <=> B"
 kf = 1.0e3
 kr = 1.0e3
 
 [[reaction]]
-equation = "B <=> C"
+scheme = "B <=> C"
 kf = 1.0e-6
 K = 1.0
 "#;
@@ -143,7 +143,7 @@ fn a_feed_has_no_equilibrium_and_says_so() {
 A = 0.0
 
 [[reaction]]
-equation = "0 => A"
+scheme = "0 => A"
 kf = 1.0e-3
 "#;
     let result = run_with(text, 1e-6, 1e-12, None);

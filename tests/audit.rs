@@ -18,22 +18,22 @@ C = 0.0
 D = 0.0
 
 [[reaction]]
-equation = "A <=> B"
+scheme = "A <=> B"
 kf = 1.0
 kr = 0.5
 
 [[reaction]]
-equation = "B <=> C"
+scheme = "B <=> C"
 kf = 2.0
 kr = 0.8
 
 [[reaction]]
-equation = "C <=> A"
+scheme = "C <=> A"
 kf = 0.4
 kr = {kr3}
 
 [[reaction]]
-equation = "A <=> D"
+scheme = "A <=> D"
 kf = 0.3
 kr = 0.1
 "#
@@ -118,7 +118,7 @@ CO2 = {{ initial = 0.0, dGf = {}, formula = "CO2" }}
 H2 = {{ initial = 0.0, dGf = {}, formula = "H2" }}
 
 [[reaction]]
-equation = "CO + H2O <=> CO2 + H2"
+scheme = "CO + H2O <=> CO2 + H2"
 kf = 2.0
 kr = {}
 "#,
@@ -154,11 +154,11 @@ Fe3 = { initial = 1.0, formula = "Fe", charge = 3 }
 Fe2 = { initial = 0.0, formula = "Fe", charge = 2 }
 
 [[reaction]]
-equation = "CH4 + O2 => CO2 + H2O"
+scheme = "CH4 + O2 => CO2 + H2O"
 kf = 1.0
 
 [[reaction]]
-equation = "Fe3 <=> Fe2"
+scheme = "Fe3 <=> Fe2"
 kf = 1.0
 kr = 1.0
 "#;
@@ -187,7 +187,7 @@ B = 1.0
 C = 0.0
 
 [[reaction]]
-equation = "A + B <=> C"
+scheme = "A + B <=> C"
 kf = 5.0e10
 kr = 1.0e-12
 "#;
@@ -220,7 +220,7 @@ fn large_networks_report_cycles_by_their_closing_step() {
     for i in 0..n {
         let kr = if i == n - 1 { 1.0 / 3.0 } else { 1.0 };
         text += &format!(
-            "\n[[reaction]]\nequation = \"X{i} <=> X{}\"\nkf = 1.0\nkr = {kr}\n",
+            "\n[[reaction]]\nscheme = \"X{i} <=> X{}\"\nkf = 1.0\nkr = {kr}\n",
             (i + 1) % n
         );
     }
@@ -264,17 +264,17 @@ B = 0.0
 C = 0.0
 
 [[reaction]]
-equation = "A <=> B"
+scheme = "A <=> B"
 kf = 2.0
 kr = 1.0   # measured
 
 [[reaction]]
-equation = "B <=> C"
+scheme = "B <=> C"
 kf = { A = 1.0e6, Ea = "30 kJ/mol" }
 kr = { A = 1.0e6, Ea = "30 kJ/mol" }
 
 [[reaction]]
-equation = "C <=> A"
+scheme = "C <=> A"
 kf = "3.6 1/h"
 K = { dH = "0 kJ/mol", dS = 0.0 }
 "#;
@@ -303,7 +303,7 @@ fn an_independent_k_is_a_reference_and_stays() {
     // kr given explicitly beside K: K is an independent reference that kf/kr misses by a factor
     // 2; the correction moves kf or kr, never K.
     let text =
-        "[species]\nD = 1.0\nE = 0.0\n\n[[reaction]]\nequation = \"D <=> E\"\nkf = 1.0\nkr = 1.0\nK = 2.0\n";
+        "[species]\nD = 1.0\nE = 0.0\n\n[[reaction]]\nscheme = \"D <=> E\"\nkf = 1.0\nkr = 1.0\nK = 2.0\n";
     for adjust in [Adjust::Kr, Adjust::Kf, Adjust::Both] {
         let fixed = round_trip(text, adjust, None);
         assert!(fixed.contains("K = 2.0"), "{fixed}");
@@ -320,17 +320,17 @@ Y = { initial = 0.0, phase = "gas" }
 Z = { initial = 0.0, phase = "gas" }
 
 [[reaction]]
-equation = "X <=> Y"
+scheme = "X <=> Y"
 kf = 1.0
 kr = 1.0
 
 [[reaction]]
-equation = "Y <=> Z"
+scheme = "Y <=> Z"
 kf = 1.0
 kr = 1.0
 
 [[reaction]]
-equation = "Z <=> X"
+scheme = "Z <=> X"
 kf = 1.0
 Kp = 2.0
 "#;

@@ -10,13 +10,13 @@ fn bad_input_exits_2_naming_file_line_and_field() {
     let case = write_case(
         dir.path(),
         "bad.toml",
-        "[species]\nA = 1.0\n\n[[reaction]]\nequation = \"A <=> B\"\nkf = 1\nkr = 1\n",
+        "[species]\nA = 1.0\n\n[[reaction]]\nscheme = \"A <=> B\"\nkf = 1\nkr = 1\n",
     );
     let out = kinequil(&["run", &case, "--out", dir.path().join("o").to_str().unwrap()]);
     assert_eq!(out.status.code(), Some(2));
     let stderr = String::from_utf8_lossy(&out.stderr);
     assert!(
-        stderr.contains("bad.toml, line 5, field `reaction[1].equation`: unknown species `B`"),
+        stderr.contains("bad.toml, line 5, field `reaction[1].scheme`: unknown species `B`"),
         "{stderr}"
     );
     assert!(!stderr.contains("panicked"));
@@ -177,7 +177,7 @@ fn equilibrium_command_reports_composition_extents_and_conversion() {
     let one_way = write_case(
         dir.path(),
         "oneway.toml",
-        "[species]\nA = 1.0\nB = 0.0\n\n[[reaction]]\nequation = \"A => B\"\nkf = 1.0\n",
+        "[species]\nA = 1.0\nB = 0.0\n\n[[reaction]]\nscheme = \"A => B\"\nkf = 1.0\n",
     );
     let out = kinequil(&["equilibrium", &one_way]);
     assert_eq!(out.status.code(), Some(1));
@@ -197,8 +197,8 @@ fn check_exits_0_1_2_and_writes_corrections_to_a_new_file() {
     );
     assert!(String::from_utf8_lossy(&out.stdout).contains("CONSISTENT"));
 
-    let cycle = "[species]\nA = 1.0\nB = 0.0\nC = 0.0\n\n[[reaction]]\nequation = \"A <=> B\"\nkf = 1.0\nkr = 0.5\n\n\
-                 [[reaction]]\nequation = \"B <=> C\"\nkf = 1.0\nK = 1.0\n\n[[reaction]]\nequation = \"C <=> A\"\nkf = 1.0\nkr = 1.0\n";
+    let cycle = "[species]\nA = 1.0\nB = 0.0\nC = 0.0\n\n[[reaction]]\nscheme = \"A <=> B\"\nkf = 1.0\nkr = 0.5\n\n\
+                 [[reaction]]\nscheme = \"B <=> C\"\nkf = 1.0\nK = 1.0\n\n[[reaction]]\nscheme = \"C <=> A\"\nkf = 1.0\nkr = 1.0\n";
     let broken = write_case(dir.path(), "cycle.toml", cycle);
     let out = kinequil(&["check", &broken, "--json"]);
     assert_eq!(out.status.code(), Some(1));

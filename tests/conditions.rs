@@ -19,7 +19,7 @@ fn gas_step(species: &[&str], equation: &str, kp: &str) -> String {
     for s in species {
         text += &format!("{s} = {{ initial = 0.01, phase = \"gas\" }}\n");
     }
-    text + &format!("\n[[reaction]]\nequation = \"{equation}\"\nkf = 1.0\nKp = {kp}\n")
+    text + &format!("\n[[reaction]]\nscheme = \"{equation}\"\nkf = 1.0\nKp = {kp}\n")
 }
 
 #[test]
@@ -134,7 +134,7 @@ B = 1.0
 C = 0.0
 
 [[reaction]]
-equation = "A + B <=> C"
+scheme = "A + B <=> C"
 kf = {{ A = "1.0e10 L/(mol*s)", Ea = "60 kJ/mol" }}
 kr = {{ A = "2.0e12 1/s", Ea = "{ea_r} kJ/mol" }}
 K = {{ value = 5.0, at = "25 degC", dH = "-20 kJ/mol" }}
@@ -176,7 +176,7 @@ B = { initial = "0.5 mol/m3" }
 C = 0.0
 
 [[reaction]]
-equation = "A + B <=> C"
+scheme = "A + B <=> C"
 kf = "3.6 L/(mol*h)"
 kr = "0.06 1/min"
 "#;
@@ -211,7 +211,7 @@ A = 0.0
 B = 0.05
 
 [[reaction]]
-equation = "S <=> A + B"
+scheme = "S <=> A + B"
 kf = 0.02
 K = 0.04
 "#;
@@ -247,7 +247,7 @@ N2O4 = { initial = "1 bar", phase = "gas" }
 NO2 = { initial = 0.0, phase = "gas" }
 
 [[reaction]]
-equation = "N2O4 <=> 2 NO2"
+scheme = "N2O4 <=> 2 NO2"
 kf = 5.0
 Kp = 0.1485
 "#;
@@ -268,12 +268,12 @@ G = { initial = "1 bar", phase = "gas" }
 H = { initial = 0.0, phase = "gas" }
 
 [[reaction]]
-equation = "A <=> B"
+scheme = "A <=> B"
 kf = { A = 1.0e8, Ea = "60 kJ/mol" }
 K = { value = 4.0, at = "25 degC", dH = "-20 kJ/mol" }
 
 [[reaction]]
-equation = "G <=> H"
+scheme = "G <=> H"
 kf = 1.0
 kr = 2.0
 "#;

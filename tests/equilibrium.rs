@@ -42,7 +42,7 @@ B = 0.5
 C = 0.1
 
 [[reaction]]
-equation = "A + B <=> C"
+scheme = "A + B <=> C"
 kf = 3.0
 kr = 0.2
 "#;
@@ -112,7 +112,7 @@ A = 1.0
 B = 0.0
 
 [[reaction]]
-equation = "2 A <=> B"
+scheme = "2 A <=> B"
 kf = 0.7
 kr = 0.1
 "#;
@@ -140,12 +140,12 @@ B = 0.0
 C = 0.0
 
 [[reaction]]
-equation = "A <=> B"
+scheme = "A <=> B"
 kf = 2.0
 kr = 0.5
 
 [[reaction]]
-equation = "B <=> C"
+scheme = "B <=> C"
 kf = 0.3
 kr = 0.04
 "#;
@@ -186,7 +186,7 @@ A = 0.1
 B = 0.0
 
 [[reaction]]
-equation = "S <=> A + B"
+scheme = "S <=> A + B"
 kf = 0.02
 K = 0.04
 "#;
@@ -211,7 +211,7 @@ K = 0.04
 
 #[test]
 fn says_clearly_when_there_is_no_equilibrium() {
-    let one_way = "[species]\nA = 1.0\nB = 0.0\n\n[[reaction]]\nequation = \"A => B\"\nkf = 1.0\n";
+    let one_way = "[species]\nA = 1.0\nB = 0.0\n\n[[reaction]]\nscheme = \"A => B\"\nkf = 1.0\n";
     let net = network(one_way);
     let err = solve_equilibrium(&net, &Stoichiometry::new(&net)).unwrap_err();
     assert!(matches!(err, NoEquilibrium::OneWaySteps(_)), "{err}");
@@ -224,17 +224,17 @@ B = 0.0
 C = 0.0
 
 [[reaction]]
-equation = "A <=> B"
+scheme = "A <=> B"
 kf = 1.0
 K = 2.0
 
 [[reaction]]
-equation = "B <=> C"
+scheme = "B <=> C"
 kf = 1.0
 K = 1.0
 
 [[reaction]]
-equation = "C <=> A"
+scheme = "C <=> A"
 kf = 1.0
 K = 1.0
 "#;
@@ -270,7 +270,7 @@ fn random_detailed_balance_networks_end_where_the_solver_says() {
             let dg: f64 = rhs.iter().map(|&i| g[i]).sum::<f64>() - lhs.iter().map(|&i| g[i]).sum::<f64>();
             let side = |s: &[usize]| s.iter().map(|i| format!("X{i}")).collect::<Vec<_>>().join(" + ");
             format!(
-                "\n[[reaction]]\nequation = \"{} <=> {}\"\nkf = {kf:e}\nK = {:e}\n",
+                "\n[[reaction]]\nscheme = \"{} <=> {}\"\nkf = {kf:e}\nK = {:e}\n",
                 side(lhs),
                 side(rhs),
                 (-dg).exp()

@@ -16,17 +16,17 @@ D = 0.1
 E = 0.0
 
 [[reaction]]
-equation = "A + B <=> C"
+scheme = "A + B <=> C"
 kf = 1.2
 kr = 0.3
 
 [[reaction]]
-equation = "C <=> D"
+scheme = "C <=> D"
 kf = 0.5
 K = 2.5
 
 [[reaction]]
-equation = "2 A <=> E"
+scheme = "2 A <=> E"
 kf = 0.4
 kr = 0.1
 "#;

@@ -58,7 +58,7 @@ const FRAGMENTS: [&str; 16] = [
     "0",
     "\n[[reaction]]\n",
     "\n[species]\n",
-    "orders = { A = 0 }\n",
+    "order_in = { A = 0 }\n",
     "phase = \"solid\"",
     "phase = \"gas\"",
     "=",

@@ -24,52 +24,61 @@ fn out_of_range_values_are_refused_with_line_and_field() {
         (
             one_step(
                 ab,
-                "equation = \"1000000000000000000000000000000A <=> B\"\nkf = 1\nkr = 1",
+                "scheme = \"1000000000000000000000000000000A <=> B\"\nkf = 1\nkr = 1",
             ),
             6,
-            "reaction[1].equation",
+            "reaction[1].scheme",
             "coefficient",
         ),
         (
-            one_step("A = 1e308\nB = 0.0", "equation = \"A <=> B\"\nkf = 1\nkr = 1"),
+            one_step("A = 1e308\nB = 0.0", "scheme = \"A <=> B\"\nkf = 1\nkr = 1"),
             2,
             "species.A",
             "denser",
         ),
         (
-            one_step("A = 4.9e-324\nB = 0.0", "equation = \"A <=> B\"\nkf = 1\nkr = 1"),
+            one_step("A = 4.9e-324\nB = 0.0", "scheme = \"A <=> B\"\nkf = 1\nkr = 1"),
             2,
             "species.A",
             "write 0",
         ),
         (
-            one_step(ab, "equation = \"A <=> B\"\nkf = { A = 1e300, Ea = 10 }\nkr = 1"),
+            one_step(ab, "scheme = \"A <=> B\"\nkf = { A = 1e300, Ea = 10 }\nkr = 1"),
             7,
             "reaction[1].kf",
             "outside",
         ),
         (
-            one_step(ab, "equation = \"A <=> B\"\nkf = 1\nK = { dH = -5000, dS = 0 }"),
+            one_step(ab, "scheme = \"A <=> B\"\nkf = 1\nK = { dH = -5000, dS = 0 }"),
             8,
             "reaction[1].K",
             "overflow",
         ),
         (
-            one_step(ab, "equation = \"A <=> B\"\nkf = 1\nK = { dH = 5000, dS = 0 }"),
+            one_step(ab, "scheme = \"A <=> B\"\nkf = 1\nK = { dH = 5000, dS = 0 }"),
             8,
             "reaction[1].K",
             "underflow",
         ),
         (
-            one_step(ab, "equation = \"A <=> B\"\nkf = 1\nkr = 1\norders = { A = 20 }"),
+            one_step(ab, "scheme = \"A <=> B\"\nkf = 1\nkr = 1\norder_in = { A = 20 }"),
             9,
-            "reaction[1].orders.A",
+            "reaction[1].order_in.A",
             "order",
         ),
         (
             format!(
                 "temperature = 60\n{}",
-                one_step(ab, "equation = \"A <=> B\"\nkf = 1\nkr = 1")
+                one_step(ab, "scheme = \"A <=> B\"\nkf = 1\nkr = 1")
+            ),
+            1,
+            "temperature",
+            "write the unit",
+        ),
+        (
+            format!(
+                "temperature = \"60 K\"\n{}",
+                one_step(ab, "scheme = \"A <=> B\"\nkf = 1\nkr = 1")
             ),
             1,
             "temperature",
@@ -102,7 +111,7 @@ fn out_of_range_values_are_refused_with_line_and_field() {
 
 #[test]
 fn the_library_checks_a_temperature_override() {
-    let text = one_step("A = 1.0\nB = 0.0", "equation = \"A <=> B\"\nkf = 1\nkr = 1");
+    let text = one_step("A = 1.0\nB = 0.0", "scheme = \"A <=> B\"\nkf = 1\nkr = 1");
     let err = Network::from_text_at(&text, Path::new("t.toml"), Some(60.0)).unwrap_err();
     assert!(err.to_string().contains("60 K is outside"), "{err}");
     assert!(Network::from_text_at(&text, Path::new("t.toml"), Some(333.15)).is_ok());
@@ -116,7 +125,7 @@ fn twenty_thousand_spectators_answer_at_once() {
     for i in 0..20_000 {
         text += &format!("X{i} = 1.0\n");
     }
-    text += "\n[[reaction]]\nequation = \"X0 <=> X1\"\nkf = 1.0\nkr = 2.0\n";
+    text += "\n[[reaction]]\nscheme = \"X0 <=> X1\"\nkf = 1.0\nkr = 2.0\n";
     let net = Network::from_text(&text, Path::new("many.toml")).unwrap();
     let solved = kinequil::solve_equilibrium(&net, &kinequil::Stoichiometry::new(&net)).unwrap();
     // X0 + X1 = 2 with X1/X0 = 1/2 (K = kf/kr): X0 = 4/3 (by hand), to rounding.
@@ -170,7 +179,7 @@ fn slow_case() -> String {
     }
     for i in 0..n - 1 {
         text += &format!(
-            "\n[[reaction]]\nequation = \"S{i} <=> S{}\"\nkf = {:e}\nkr = {:e}\n",
+            "\n[[reaction]]\nscheme = \"S{i} <=> S{}\"\nkf = {:e}\nkr = {:e}\n",
             i + 1,
             1.0 + (i % 7) as f64,
             0.5 + (i % 5) as f64
@@ -231,7 +240,7 @@ fn summary_rows_keep_their_columns() {
     let feed = write_case(
         dir.path(),
         "feed.toml",
-        "[species]\nA = 1.0\nB = 0.0\n\n[[reaction]]\nequation = \"A => B\"\nkf = 2.0\n",
+        "[species]\nA = 1.0\nB = 0.0\n\n[[reaction]]\nscheme = \"A => B\"\nkf = 2.0\n",
     );
     let out = dir.path().join("c");
     assert!(kinequil(&["run", &feed, "--out", out.to_str().unwrap()])

@@ -8,14 +8,14 @@ use kinequil::Network;
 const CASES: &[(&str, &str, Option<usize>, &str, &str)] = &[
     (
         "uncertainty factor below 1",
-        "[species]\nA = 1.0\nB = 0.0\n\n[[reaction]]\nequation = \"A <=> B\"\nkf = 1.0\nK = 2.0\nuncertainty = { kf = 0.5 }\n",
+        "[species]\nA = 1.0\nB = 0.0\n\n[[reaction]]\nscheme = \"A <=> B\"\nkf = 1.0\nK = 2.0\nuncertainty = { kf = 0.5 }\n",
         Some(9),
         "reaction[1].uncertainty.kf",
         "a factor from 1 to 1000",
     ),
     (
         "uncertainty on a constant the step does not give",
-        "[species]\nA = 1.0\nB = 0.0\n\n[[reaction]]\nequation = \"A <=> B\"\nkf = 1.0\nkr = 2.0\nuncertainty = { K = \"1 kJ/mol\" }\n",
+        "[species]\nA = 1.0\nB = 0.0\n\n[[reaction]]\nscheme = \"A <=> B\"\nkf = 1.0\nkr = 2.0\nuncertainty = { K = \"1 kJ/mol\" }\n",
         Some(9),
         "reaction[1].uncertainty.K",
         "does not give this constant",
@@ -29,9 +29,9 @@ const CASES: &[(&str, &str, Option<usize>, &str, &str)] = &[
     ),
     (
         "unknown species",
-        "[species]\nA = 1.0\n\n[[reaction]]\nequation = \"A <=> Q\"\nkf = 1.0\nkr = 1.0\n",
+        "[species]\nA = 1.0\n\n[[reaction]]\nscheme = \"A <=> Q\"\nkf = 1.0\nkr = 1.0\n",
         Some(5),
-        "reaction[1].equation",
+        "reaction[1].scheme",
         "unknown species `Q`",
     ),
     (
@@ -43,42 +43,42 @@ const CASES: &[(&str, &str, Option<usize>, &str, &str)] = &[
     ),
     (
         "malformed equation",
-        "[species]\nA = 1.0\nB = 0.0\n\n[[reaction]]\nequation = \"A -> B\"\nkf = 1.0\n",
+        "[species]\nA = 1.0\nB = 0.0\n\n[[reaction]]\nscheme = \"A -> B\"\nkf = 1.0\n",
         Some(6),
-        "reaction[1].equation",
+        "reaction[1].scheme",
         "no arrow",
     ),
     (
         "negative constant",
-        "[species]\nA = 1.0\nB = 0.0\n\n[[reaction]]\nequation = \"A => B\"\nkf = -2.0\n",
+        "[species]\nA = 1.0\nB = 0.0\n\n[[reaction]]\nscheme = \"A => B\"\nkf = -2.0\n",
         Some(7),
         "reaction[1].kf",
         "must not be negative",
     ),
     (
         "NaN constant",
-        "[species]\nA = 1.0\nB = 0.0\n\n[[reaction]]\nequation = \"A => B\"\nkf = nan\n",
+        "[species]\nA = 1.0\nB = 0.0\n\n[[reaction]]\nscheme = \"A => B\"\nkf = nan\n",
         Some(7),
         "reaction[1].kf",
         "finite",
     ),
     (
         "infinite constant",
-        "[species]\nA = 1.0\nB = 0.0\n\n[[reaction]]\nequation = \"A <=> B\"\nkf = 1.0\nkr = inf\n",
+        "[species]\nA = 1.0\nB = 0.0\n\n[[reaction]]\nscheme = \"A <=> B\"\nkf = 1.0\nkr = inf\n",
         Some(8),
         "reaction[1].kr",
         "finite",
     ),
     (
         "reversible step without kr or K",
-        "[species]\nA = 1.0\nB = 0.0\n\n[[reaction]]\nequation = \"A <=> B\"\nkf = 1.0\n",
+        "[species]\nA = 1.0\nB = 0.0\n\n[[reaction]]\nscheme = \"A <=> B\"\nkf = 1.0\n",
         Some(6),
         "reaction[1]",
         "either kr or the equilibrium constant K",
     ),
     (
         "no species",
-        "[species]\n\n[[reaction]]\nequation = \"0 => A\"\nkf = 1.0\n",
+        "[species]\n\n[[reaction]]\nscheme = \"0 => A\"\nkf = 1.0\n",
         Some(1),
         "species",
         "no species",
@@ -99,28 +99,28 @@ const CASES: &[(&str, &str, Option<usize>, &str, &str)] = &[
     ),
     (
         "negative initial concentration",
-        "[species]\nA = -1.0\n\n[[reaction]]\nequation = \"A => 0\"\nkf = 1.0\n",
+        "[species]\nA = -1.0\n\n[[reaction]]\nscheme = \"A => 0\"\nkf = 1.0\n",
         Some(2),
         "species.A",
         "must not be negative",
     ),
     (
         "text where a number belongs",
-        "[species]\nA = 1.0\n\n[[reaction]]\nequation = \"A => 0\"\nkf = \"fast\"\n",
+        "[species]\nA = 1.0\n\n[[reaction]]\nscheme = \"A => 0\"\nkf = \"fast\"\n",
         Some(6),
         "reaction[1].kf",
         "is not a number with units",
     ),
     (
         "misspelt key",
-        "[species]\nA = 1.0\n\n[[reaction]]\nequation = \"A => 0\"\nkff = 1.0\n",
+        "[species]\nA = 1.0\n\n[[reaction]]\nscheme = \"A => 0\"\nkff = 1.0\n",
         Some(6),
         "reaction[1].kff",
         "unknown key",
     ),
     (
         "kr on a one-way step",
-        "[species]\nA = 1.0\nB = 0.0\n\n[[reaction]]\nequation = \"A => B\"\nkf = 1.0\nkr = 1.0\n",
+        "[species]\nA = 1.0\nB = 0.0\n\n[[reaction]]\nscheme = \"A => B\"\nkf = 1.0\nkr = 1.0\n",
         Some(8),
         "reaction[1].kr",
         "one-way",
@@ -163,7 +163,7 @@ fn networks_built_in_code_are_checked_like_files() {
         .build()
         .unwrap();
     let read = crate::util::network(
-        "[species]\nA = 1.0\nB = 0.0\n\n[[reaction]]\nequation = \"A <=> B\"\nkf = 2.0\nK = 4.0\n",
+        "[species]\nA = 1.0\nB = 0.0\n\n[[reaction]]\nscheme = \"A <=> B\"\nkf = 2.0\nK = 4.0\n",
     );
     assert_eq!(
         (built.reactions[0].kf, built.reactions[0].kr),

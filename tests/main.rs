@@ -14,6 +14,7 @@ mod fuzz;
 mod hardening;
 mod input_errors;
 mod model;
+mod practice;
 mod report;
 mod robertson;
 mod robustness;

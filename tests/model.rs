@@ -16,27 +16,27 @@ D = 0.0
 Cat = 0.01
 
 [[reaction]]
-equation = "A + 2 B <=> C"
+scheme = "A + 2 B <=> C"
 kf = 3.0
 kr = 0.7
 
 [[reaction]]
-equation = "C <=> D"
+scheme = "C <=> D"
 kf = 0.4
 K = 3.0
-orders = { C = 0.5, Cat = 1.0 }
-reverse_orders = { D = 1.5 }
+order_in = { C = 0.5, Cat = 1.0 }
+reverse_order_in = { D = 1.5 }
 
 [[reaction]]
-equation = "0 => A"
+scheme = "0 => A"
 kf = 0.01
 
 [[reaction]]
-equation = "D => 0"
+scheme = "D => 0"
 kf = 0.02
 
 [[reaction]]
-equation = "2 A <=> B"
+scheme = "2 A <=> B"
 kf = 0.9
 kr = 0.2
 "#;
@@ -106,17 +106,17 @@ D = 0.2
 E = 0.0
 
 [[reaction]]
-equation = "A + B <=> C"
+scheme = "A + B <=> C"
 kf = 50.0
 kr = 1.0
 
 [[reaction]]
-equation = "C + D <=> E"
+scheme = "C + D <=> E"
 kf = 4.0
 kr = 0.01
 
 [[reaction]]
-equation = "2 A <=> D"
+scheme = "2 A <=> D"
 kf = 1.0e-3
 K = 0.5
 "#;

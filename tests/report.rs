@@ -21,7 +21,7 @@ fn chain() -> String {
     }
     for i in 0..13 {
         text += &format!(
-            "\n[[reaction]]\nequation = \"X{i} <=> X{}\"\nkf = {}\nkr = 0.5\n",
+            "\n[[reaction]]\nscheme = \"X{i} <=> X{}\"\nkf = {}\nkr = 0.5\n",
             i + 1,
             1.0 + 0.1 * i as f64
         );
@@ -156,7 +156,7 @@ fn chosen_species_units_axis_and_output_times() {
     let case = dir.path().join("ab.toml");
     std::fs::write(
         &case,
-        "[species]\nA = 1.0\nB = 0.0\nC = 0.0\n\n[[reaction]]\nequation = \"A <=> B\"\nkf = 2.0\nkr = 1.0\n",
+        "[species]\nA = 1.0\nB = 0.0\nC = 0.0\n\n[[reaction]]\nscheme = \"A <=> B\"\nkf = 2.0\nkr = 1.0\n",
     )
     .unwrap();
     let out = dir.path().join("out");
@@ -218,7 +218,7 @@ fn chosen_species_units_axis_and_output_times() {
         "Z",
     ]);
     assert_eq!(bad.status.code(), Some(2));
-    assert!(String::from_utf8_lossy(&bad.stderr).contains("no species `Z`"));
+    assert!(String::from_utf8_lossy(&bad.stderr).contains("unknown species `Z`"));
 }
 
 #[test]

@@ -88,7 +88,7 @@ fn association_scan_in_every_species_order() {
             let other = large - small + y;
             let c = k * y * other;
             let (ca, cb) = if a <= b { (y, other) } else { (other, y) };
-            let reactions = format!("\n[[reaction]]\nequation = \"A + B <=> C\"\nkf = 1.0\nK = {k:e}\n");
+            let reactions = format!("\n[[reaction]]\nscheme = \"A + B <=> C\"\nkf = 1.0\nK = {k:e}\n");
             for order in permutations(3) {
                 let t = text(&[("A", a), ("B", b), ("C", 0.0)], &order, &reactions);
                 let case = format!("A + B <=> C, K = {k:e}, B0/A0 = {r:e}, order {order:?}");
@@ -107,7 +107,7 @@ fn dimerisation_scan_in_every_species_order() {
             let (a0, b0) = (1f64.min(1.0 / r), r.min(1.0));
             let a = a0 + 2.0 * b0;
             let ca = 2.0 * a / (1.0 + (1.0 + 8.0 * k * a).sqrt());
-            let reactions = format!("\n[[reaction]]\nequation = \"2 A <=> B\"\nkf = 1.0\nK = {k:e}\n");
+            let reactions = format!("\n[[reaction]]\nscheme = \"2 A <=> B\"\nkf = 1.0\nK = {k:e}\n");
             for order in permutations(2) {
                 let t = text(&[("A", a0), ("B", b0)], &order, &reactions);
                 let case = format!("2 A <=> B, K = {k:e}, B0/A0 = {r:e}, order {order:?}");
@@ -130,7 +130,7 @@ fn dissociation_scan_in_every_species_order() {
             let other = large - small + y;
             let ca = y * other / k;
             let (cb, cc) = if b <= c { (y, other) } else { (other, y) };
-            let reactions = format!("\n[[reaction]]\nequation = \"A <=> B + C\"\nkf = 1.0\nK = {k:e}\n");
+            let reactions = format!("\n[[reaction]]\nscheme = \"A <=> B + C\"\nkf = 1.0\nK = {k:e}\n");
             for order in permutations(3) {
                 let t = text(&[("A", 0.0), ("B", b), ("C", c)], &order, &reactions);
                 let case = format!("A <=> B + C, K = {k:e}, C0/B0 = {r:e}, order {order:?}");
@@ -159,7 +159,7 @@ fn single_association_step_converges_in_every_order_and_start() {
             let other = large - small + y;
             let cb = k * y * other;
             let (ca, ce) = if a <= e { (y, other) } else { (other, y) };
-            let reactions = format!("\n[[reaction]]\nequation = \"A + E <=> B\"\nkf = 10\nK = {k:e}\n");
+            let reactions = format!("\n[[reaction]]\nscheme = \"A + E <=> B\"\nkf = 10\nK = {k:e}\n");
             for order in permutations(3) {
                 let t = text(&[("A", a0), ("B", b0), ("E", e0)], &order, &reactions);
                 let case = format!("A + E <=> B, K = {k}, start {:?}, order {order:?}", (a0, b0, e0));
@@ -194,7 +194,7 @@ fn random_network(seed: u64) -> (Vec<(String, f64)>, String) {
         let kf = 10f64.powf(12.0 * rng.next_f64() - 4.0).min(1e20 * (-dg).exp());
         let side = |s: &[usize]| s.iter().map(|i| format!("S{i}")).collect::<Vec<_>>().join(" + ");
         *reactions += &format!(
-            "\n[[reaction]]\nequation = \"{} <=> {}\"\nkf = {kf:e}\nK = {:e}\n",
+            "\n[[reaction]]\nscheme = \"{} <=> {}\"\nkf = {kf:e}\nK = {:e}\n",
             side(lhs),
             side(rhs),
             (-dg).exp()
@@ -216,7 +216,7 @@ fn random_network(seed: u64) -> (Vec<(String, f64)>, String) {
     if reactions.is_empty() {
         // Three species and no association drawn: a dimerisation keeps the network non-empty.
         reactions = format!(
-            "\n[[reaction]]\nequation = \"2 S0 <=> S1\"\nkf = 1.0\nK = {:e}\n",
+            "\n[[reaction]]\nscheme = \"2 S0 <=> S1\"\nkf = 1.0\nK = {:e}\n",
             (2.0 * g[0] - g[1]).exp()
         );
     }
@@ -321,12 +321,12 @@ Y = 0.0
 B = 0.0
 
 [[reaction]]
-equation = "A <=> X + Y"
+scheme = "A <=> X + Y"
 kf = 1e3
 K = 1e-16
 
 [[reaction]]
-equation = "X + Y <=> B"
+scheme = "X + Y <=> B"
 kf = 1e5
 K = 1e10
 "#;
@@ -358,12 +358,12 @@ S2 = { initial = 0.5, phase = "solid" }
 A = 0.0
 
 [[reaction]]
-equation = "S1 <=> A"
+scheme = "S1 <=> A"
 kf = 1.0
 K = 0.1
 
 [[reaction]]
-equation = "S2 <=> A"
+scheme = "S2 <=> A"
 kf = 1.0
 K = 0.01
 "#;
@@ -393,7 +393,7 @@ fn a_used_up_solid_that_would_reform_is_not_accepted() {
     // must stay below K (undersaturated: S does not form again).
     let t = |s0: f64| {
         format!(
-            "[species]\nS = {{ initial = {s0}, phase = \"solid\" }}\nA = 0.5\nB = 0.0\n\n[[reaction]]\nequation = \"S <=> A + B\"\nkf = 1.0\nK = 0.04\n"
+            "[species]\nS = {{ initial = {s0}, phase = \"solid\" }}\nA = 0.5\nB = 0.0\n\n[[reaction]]\nscheme = \"S <=> A + B\"\nkf = 1.0\nK = 0.04\n"
         )
     };
     let net = network(&t(0.1));
@@ -439,7 +439,7 @@ fn every_bundled_case_with_an_equilibrium_reaches_it_and_the_routes_agree() {
 fn a_horizon_too_short_is_said_with_figures_not_blamed_on_one_way_steps() {
     // A <=> B with kf = kr = 1e-17 /s: τ = 1/(kf + kr) = 5e16 s (textbook first-order
     // relaxation), beyond the longest automatic horizon of 1e16 s.
-    let t = "[species]\nA = 1.0\nB = 0.0\n\n[[reaction]]\nequation = \"A <=> B\"\nkf = 1e-17\nkr = 1e-17\n";
+    let t = "[species]\nA = 1.0\nB = 0.0\n\n[[reaction]]\nscheme = \"A <=> B\"\nkf = 1e-17\nkr = 1e-17\n";
     let result = run(&network(t), &RunSettings::default()).expect("run succeeds");
     assert!(result.solution.equilibrium_at.is_none());
     let said = kinequil::Summary::from_result(&result).stop_reason;
@@ -457,7 +457,7 @@ fn an_approach_far_from_the_linear_regime_is_flagged() {
     // 2 A <=> B with kf = 1e6 L/(mol s), kr = 1e-8 /s from A = 1: the start is second order and
     // fast, the equilibrium relaxation (1/τ = 4 kf [A]eq + kr) slow, so τ·ln(1/tol) overstates
     // the integrated time by orders of magnitude and the run must say so.
-    let t = "[species]\nA = 1.0\nB = 0.0\n\n[[reaction]]\nequation = \"2 A <=> B\"\nkf = 1e6\nkr = 1e-8\n";
+    let t = "[species]\nA = 1.0\nB = 0.0\n\n[[reaction]]\nscheme = \"2 A <=> B\"\nkf = 1e6\nkr = 1e-8\n";
     let result = run(&network(t), &RunSettings::default()).expect("run succeeds");
     assert!(result.solution.equilibrium_at.is_some() && !result.disagrees);
     let note = kinequil::Summary::from_result(&result)

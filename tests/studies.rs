@@ -38,7 +38,7 @@ fn time_to_equilibrium_is_log_normal_when_kf_is() {
         dir.path(),
         "ab.toml",
         &format!(
-            "[species]\nA = 1.0\nB = 0.0\n\n[[reaction]]\nequation = \"A <=> B\"\nkf = {kf}\nK = {k}\nuncertainty = {{ kf = 2.0 }}\n"
+            "[species]\nA = 1.0\nB = 0.0\n\n[[reaction]]\nscheme = \"A <=> B\"\nkf = {kf}\nK = {k}\nuncertainty = {{ kf = 2.0 }}\n"
         ),
     );
     let out = dir.path().join("u");
@@ -109,7 +109,7 @@ fn a_temperature_sweep_follows_arrhenius_and_van_t_hoff() {
     let case = write_case(
         dir.path(),
         "ab.toml",
-        "[species]\nA = 1.0\nB = 0.0\n\n[[reaction]]\nequation = \"A <=> B\"\nkf = { A = 1e6, Ea = \"50 kJ/mol\" }\nK = { value = 2.0, at = \"298.15 K\", dH = \"-10 kJ/mol\" }\n",
+        "[species]\nA = 1.0\nB = 0.0\n\n[[reaction]]\nscheme = \"A <=> B\"\nkf = { A = 1e6, Ea = \"50 kJ/mol\" }\nK = { value = 2.0, at = \"298.15 K\", dH = \"-10 kJ/mol\" }\n",
     );
     let out = dir.path().join("s");
     let printed = ok(&[
@@ -245,7 +245,7 @@ fn failed_members_are_counted_and_kept() {
     let case = write_case(
         dir.path(),
         "ab.toml",
-        "[species]\nA = 1.0\nB = 0.0\n\n[[reaction]]\nequation = \"A <=> B\"\nkf = 1e24\nkr = 1e24\n",
+        "[species]\nA = 1.0\nB = 0.0\n\n[[reaction]]\nscheme = \"A <=> B\"\nkf = 1e24\nkr = 1e24\n",
     );
     let out = dir.path().join("s");
     let printed = ok(&[
@@ -340,7 +340,7 @@ fn hold_time_sensitivities_match_first_order_closed_forms() {
     // K given: kr = kf/K moves with kf, t = ln(1/tol)/(kf (1 + 1/K)), so d ln t/d ln kf = −1 and
     // d ln t/d ln K = 1/(K + 1).
     let with_k = sensitivity_of(
-        "[species]\nA = 1.0\nB = 0.0\n\n[[reaction]]\nequation = \"A <=> B\"\nkf = 2e-3\nK = 2.0\n",
+        "[species]\nA = 1.0\nB = 0.0\n\n[[reaction]]\nscheme = \"A <=> B\"\nkf = 2e-3\nK = 2.0\n",
     );
     assert_eq!(
         with_k["constants"][0]["constant"], "kf[1]",
@@ -354,7 +354,7 @@ fn hold_time_sensitivities_match_first_order_closed_forms() {
     }
     // kr given: t = ln(1/tol)/(kf + kr), so d ln t/d ln kf = −kf/(kf + kr) = −2/3 and −1/3 for kr.
     let with_kr = sensitivity_of(
-        "[species]\nA = 1.0\nB = 0.0\n\n[[reaction]]\nequation = \"A <=> B\"\nkf = 2e-3\nkr = 1e-3\n",
+        "[species]\nA = 1.0\nB = 0.0\n\n[[reaction]]\nscheme = \"A <=> B\"\nkf = 2e-3\nkr = 1e-3\n",
     );
     for s in time_sensitivity(&with_kr, "kf[1]") {
         assert!((s + 2.0 / 3.0).abs() < SENSITIVITY_TOL, "{s}");
@@ -369,7 +369,7 @@ fn equilibrium_sensitivities_match_the_closed_form_quadratic() {
     // A + B <=> C with totals a = A + C, b = B + C: x = [C]eq solves K(a − x)(b − x) = x, so
     // dx/dK = (a − x)(b − x)/(1 + K(a + b − 2x)) by implicit differentiation.
     let (kf, kr) = (3.0, 0.2);
-    let text = format!("[species]\nA = 0.8\nB = 0.5\nC = 0.1\n\n[[reaction]]\nequation = \"A + B <=> C\"\nkf = {kf}\nkr = {kr}\n");
+    let text = format!("[species]\nA = 0.8\nB = 0.5\nC = 0.1\n\n[[reaction]]\nscheme = \"A + B <=> C\"\nkf = {kf}\nkr = {kr}\n");
     let report = sensitivity_of(&text);
     let k: f64 = kf / kr;
     let (a, b): (f64, f64) = (0.9, 0.6);

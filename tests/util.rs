@@ -9,7 +9,7 @@ use kinequil::{run, RunResult, RunSettings};
 /// A <=> B with kf = 2 and kr = 1 from A = 1: the smallest complete network, for tests of the
 /// command line and the output folders (closed form: A = 1/3 + 2/3 e^(−3t)).
 pub const ISOMERISATION: &str =
-    "[species]\nA = 1.0\nB = 0.0\n\n[[reaction]]\nequation = \"A <=> B\"\nkf = 2.0\nkr = 1.0\n";
+    "[species]\nA = 1.0\nB = 0.0\n\n[[reaction]]\nscheme = \"A <=> B\"\nkf = 2.0\nkr = 1.0\n";
 
 /// Parses network text as if it came from `inline.toml`.
 pub fn network(text: &str) -> Network {

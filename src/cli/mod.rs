@@ -94,9 +94,10 @@ struct RunArgs {
     /// Output folder [default: output/<case name>/].
     #[arg(long, value_name = "DIR")]
     pub out: Option<PathBuf>,
-    /// Report the state at this time in seconds (the run still finds time to equilibrium).
-    #[arg(long, value_name = "SECONDS")]
-    pub until: Option<f64>,
+    /// Hold time: report the state and a verdict at this time (plain numbers are in the
+    /// --time-unit, or give units such as "4 h"); the run still finds time to equilibrium.
+    #[arg(long, value_name = "TIME")]
+    pub until: Option<String>,
     /// Wall-clock budget for the integration in seconds: the run ends cleanly with what it
     /// reached and says so.
     #[arg(long, value_name = "SECONDS")]
@@ -191,7 +192,8 @@ fn execute(cli: Cli) -> Result<Outcome, Error> {
     }
 }
 
-/// A `--temperature` value: a number in K or a quantity with temperature units.
+/// A `--temperature` value: a quantity with temperature units. A bare number is refused: on a
+/// command line "60" is as likely meant in degC as in K, and 60 K would run silently.
 fn temperature(text: &Option<String>) -> Result<Option<f64>, Error> {
     let Some(text) = text else { return Ok(None) };
     let bad = |message: String| Error::Option {
@@ -199,8 +201,12 @@ fn temperature(text: &Option<String>) -> Result<Option<f64>, Error> {
         message,
     };
     let q = parse_quantity(text).map_err(bad)?;
-    let t = if q.dimension.same(Dimension::NONE) || q.dimension.same(Dimension::TEMPERATURE) {
+    let t = if q.dimension.same(Dimension::TEMPERATURE) {
         q.value
+    } else if q.dimension.same(Dimension::NONE) {
+        return Err(bad(format!(
+            "`{text}` has no unit; write it as \"{text} degC\" or \"{text} K\""
+        )));
     } else {
         return Err(bad(format!("`{text}` is not a temperature")));
     };
@@ -238,7 +244,7 @@ fn species_list(network: &Network, list: &str) -> Result<Vec<usize>, Error> {
         let Some(i) = network.species_index(name) else {
             return Err(Error::Option {
                 option: "--species".into(),
-                message: format!("no species `{name}` in the network"),
+                message: network.unknown_species(name),
             });
         };
         if !chosen.contains(&i) {
@@ -334,7 +340,10 @@ fn run_settings(args: &RunArgs) -> Result<RunSettings, Error> {
     };
     Ok(RunSettings {
         max_seconds: positive_seconds("--max-seconds", args.max_seconds)?,
-        until: positive_seconds("--until", args.until)?,
+        until: match &args.until {
+            Some(text) => positive_seconds("--until", Some(duration("--until", text, time_unit)?))?,
+            None => None,
+        },
         tolerances,
         rtol,
         atol: args.atol,

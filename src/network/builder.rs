@@ -193,9 +193,7 @@ fn built_reaction(
         message,
     };
     let parsed = parse_equation(&pending.equation).map_err(|m| fail(".equation", m))?;
-    let resolve = |side: &[(String, f64)]| {
-        resolve_side(side, |name| index.get(name).copied()).map_err(|m| fail(".equation", m))
-    };
+    let resolve = |side: &[(String, f64)]| resolve_side(side, index).map_err(|m| fail(".equation", m));
     let sides = (resolve(&parsed.reactants)?, resolve(&parsed.products)?);
     let reverse_given = pending.kr.is_some() || pending.k.is_some();
     check_directions(parsed.reversible, reverse_given).map_err(|m| fail("", m.into()))?;

@@ -31,6 +31,10 @@ use rules::{check_directions, check_name, check_uncertainty, mass_action_orders,
 /// Run temperature when the file gives none (IUPAC standard ambient temperature).
 pub const DEFAULT_TEMPERATURE_K: f64 = 298.15;
 
+/// A temperature written as a bare number is read in K only from this value up: below it the
+/// number is more likely meant in degC (a bare 60 would run at 60 K), so a unit is required.
+const BARE_KELVIN_FROM: f64 = 200.0;
+
 /// Ranges outside which a value is not physical for this model, so it is refused with a message
 /// rather than left to overflow or stall the solvers (common practice; the bounds are generous).
 pub mod limits {
@@ -143,7 +147,7 @@ pub fn kc_from_standard(k0: f64, delta_n_gas: f64, t: f64) -> f64 {
 pub struct Reaction {
     /// The equation as written in the file.
     pub equation: String,
-    /// Line of the `equation` field, for messages.
+    /// Line of the `scheme` field, for messages.
     pub line: usize,
     /// (species index, coefficient) on each side.
     pub reactants: Vec<(usize, f64)>,
@@ -345,6 +349,11 @@ impl Network {
         self.species.len()
     }
 
+    /// "unknown species" for `name`, with the nearest declared name when one is close.
+    pub fn unknown_species(&self, name: &str) -> String {
+        rules::unknown_species(name, self.species.iter().map(|s| s.name.as_str()))
+    }
+
     pub fn species_index(&self, name: &str) -> Option<usize> {
         self.species.iter().position(|s| s.name == name)
     }
@@ -454,6 +463,15 @@ impl<'a> Reader<'a> {
         let temperature = match root.get("temperature") {
             Some(v) => {
                 let t = self.quantity(v, "temperature", Dimension::TEMPERATURE, 1.0)?;
+                if t < BARE_KELVIN_FROM && matches!(v.get_ref(), DeValue::Integer(_) | DeValue::Float(_)) {
+                    return Err(self.error(
+                        Some(v.span()),
+                        "temperature",
+                        format!(
+                            "a bare {t} would be read as {t} K; write the unit, e.g. \"{t} degC\" or \"{t} K\""
+                        ),
+                    ));
+                }
                 if out_of_range(t) {
                     return Err(self.error(
                         Some(v.span()),
@@ -586,25 +604,32 @@ impl<'a> Reader<'a> {
 
     fn reaction(&self, item: &Value<'_>, field: &str, species: &[Species]) -> Result<Reaction, InputError> {
         let DeValue::Table(table) = item.get_ref() else {
-            return Err(self.error(Some(item.span()), field, "must be a table with equation and kf"));
+            return Err(self.error(Some(item.span()), field, "must be a table with scheme and kf"));
         };
         let known = [
-            "equation",
+            "scheme",
             "kf",
             "kr",
             "K",
             "Kp",
             "dG",
-            "orders",
-            "reverse_orders",
+            "order_in",
+            "reverse_order_in",
             "uncertainty",
         ];
         for (key, _) in table.iter() {
-            if !known.contains(&key.get_ref().as_ref()) {
+            let name: &str = key.get_ref().as_ref();
+            if !known.contains(&name) {
+                let hint = match name {
+                    "equation" => "; the chemical equation goes under `scheme`".to_string(),
+                    "orders" => "; rate-law orders go under `order_in`".to_string(),
+                    "reverse_orders" => "; reverse orders go under `reverse_order_in`".to_string(),
+                    _ => String::new(),
+                };
                 return Err(self.error(
                     Some(key.span()),
-                    &format!("{field}.{}", key.get_ref()),
-                    format!("unknown key; expected one of: {}", known.join(", ")),
+                    &format!("{field}.{name}"),
+                    format!("unknown key{hint}; expected one of: {}", known.join(", ")),
                 ));
             }
         }
@@ -654,8 +679,8 @@ impl<'a> Reader<'a> {
         Ok(step)
     }
 
-    /// The forward and reverse rate-law orders of a step (the coefficients unless `orders` or
-    /// `reverse_orders` say otherwise).
+    /// The forward and reverse rate-law orders of a step (the coefficients unless `order_in` or
+    /// `reverse_order_in` say otherwise).
     fn rate_orders(
         &self,
         table: &DeTable<'_>,
@@ -666,23 +691,23 @@ impl<'a> Reader<'a> {
         species: &[Species],
     ) -> Result<(Orders, Orders), InputError> {
         let forward_orders = self.orders(
-            table.get("orders"),
-            &format!("{field}.orders"),
+            table.get("order_in"),
+            &format!("{field}.order_in"),
             reactants,
             species,
         )?;
         let reverse_orders = if reversible {
             self.orders(
-                table.get("reverse_orders"),
-                &format!("{field}.reverse_orders"),
+                table.get("reverse_order_in"),
+                &format!("{field}.reverse_order_in"),
                 products,
                 species,
             )?
         } else {
-            if let Some(v) = table.get("reverse_orders") {
+            if let Some(v) = table.get("reverse_order_in") {
                 return Err(self.error(
                     Some(v.span()),
-                    &format!("{field}.reverse_orders"),
+                    &format!("{field}.reverse_order_in"),
                     "a one-way step has no reverse rate",
                 ));
             }
@@ -734,27 +759,30 @@ impl<'a> Reader<'a> {
         })
     }
 
-    /// The `equation` field read, parsed and resolved against the species.
+    /// The `scheme` field read, parsed and resolved against the species.
     fn resolved_equation(
         &self,
         table: &DeTable<'_>,
         item: &Value<'_>,
         field: &str,
     ) -> Result<ResolvedEquation, InputError> {
-        let eq_field = format!("{field}.equation");
-        let Some(eq_value) = table.get("equation") else {
+        let eq_field = format!("{field}.scheme");
+        let Some(eq_value) = table.get("scheme") else {
             return Err(self.error(
                 Some(item.span()),
                 &eq_field,
-                "missing: every reaction needs an equation such as \"A + B <=> C\"",
+                "missing: every reaction needs a scheme such as \"A + B <=> C\"",
             ));
         };
         let equation = self.string(eq_value, &eq_field)?;
         let line = self.line_of(eq_value.span().start);
         let parsed = parse_equation(equation).map_err(|m| self.error(Some(eq_value.span()), &eq_field, m))?;
         let resolve = |side: &[(String, f64)]| {
-            resolve_side(side, |name| self.index_of(name))
-                .map_err(|m| self.error(Some(eq_value.span()), &eq_field, m))
+            resolve_side(
+                side,
+                self.index.get().unwrap_or(&std::collections::HashMap::new()),
+            )
+            .map_err(|m| self.error(Some(eq_value.span()), &eq_field, m))
         };
         let reactants = resolve(&parsed.reactants)?;
         let products = resolve(&parsed.products)?;
@@ -816,7 +844,7 @@ impl<'a> Reader<'a> {
     }
 
     /// Rate-law orders: the side's coefficients (mass action), overridden per species by the
-    /// `orders` table; pure phases are left out (activity 1).
+    /// `order_in` table; pure phases are left out (activity 1).
     fn orders(
         &self,
         value: Option<&Value<'_>>,
@@ -835,7 +863,7 @@ impl<'a> Reader<'a> {
                     return Err(self.error(
                         Some(key.span()),
                         &sub,
-                        format!("unknown species `{}`", key.get_ref()),
+                        rules::unknown_species(key.get_ref(), species.iter().map(|s| s.name.as_str())),
                     ));
                 };
                 if species[i].phase == Phase::Pure {

@@ -1,7 +1,57 @@
 //! The rules every network obeys however it was written, file or builder: each rule is one
 //! function that returns the message, and the caller adds the line and field it knows.
 
+use std::collections::HashMap;
+
 use super::{limits, Species, Spread, UncertainValue};
+
+/// "unknown species" with the nearest declared name, when one is close enough to be a slip.
+pub(crate) fn unknown_species<'a>(name: &str, known: impl Iterator<Item = &'a str>) -> String {
+    match nearest_name(name, known) {
+        Some(near) => format!("unknown species `{name}`; did you mean `{near}`?"),
+        None => format!("unknown species `{name}`: declare it among the species"),
+    }
+}
+
+/// The known name closest to `name` by edit distance (Levenshtein, case differences counting
+/// half), if within a third of its length (at most 3; names under three characters only by
+/// case): beyond that a guess would mislead more than help (common practice in command-line
+/// suggestions).
+pub(crate) fn nearest_name<'a>(name: &str, known: impl Iterator<Item = &'a str>) -> Option<&'a str> {
+    let length = name.chars().count();
+    let limit = if length < 3 {
+        0.5
+    } else {
+        (length / 3).min(3) as f64
+    };
+    known
+        .map(|k| (edit_distance(name, k), k))
+        .filter(|&(d, _)| d <= limit)
+        .min_by(|a, b| a.0.total_cmp(&b.0).then_with(|| a.1.cmp(b.1)))
+        .map(|(_, k)| k)
+}
+
+fn edit_distance(a: &str, b: &str) -> f64 {
+    let (a, b): (Vec<char>, Vec<char>) = (a.chars().collect(), b.chars().collect());
+    let mut previous: Vec<f64> = (0..=b.len()).map(|j| j as f64).collect();
+    for (i, ca) in a.iter().enumerate() {
+        let mut current = vec![i as f64 + 1.0; b.len() + 1];
+        for (j, cb) in b.iter().enumerate() {
+            let substitution = if ca == cb {
+                0.0
+            } else if ca.to_lowercase().eq(cb.to_lowercase()) {
+                0.5
+            } else {
+                1.0
+            };
+            current[j + 1] = (previous[j] + substitution)
+                .min(previous[j + 1] + 1.0)
+                .min(current[j] + 1.0);
+        }
+        previous = current;
+    }
+    previous[b.len()]
+}
 
 /// A species name: starts with a letter (or a bracket, for `[Cu(NH3)4]2+`-style names) and
 /// holds nothing the equation syntax uses.
@@ -22,7 +72,7 @@ pub(super) fn check_name(name: &str) -> Result<(), String> {
 /// coefficient within the limit.
 pub(super) fn resolve_side(
     side: &[(String, f64)],
-    index_of: impl Fn(&str) -> Option<usize>,
+    index: &HashMap<String, usize>,
 ) -> Result<Vec<(usize, f64)>, String> {
     side.iter()
         .map(|(name, coefficient)| {
@@ -32,9 +82,10 @@ pub(super) fn resolve_side(
                     limits::MAX_COEFFICIENT
                 ));
             }
-            index_of(name)
-                .map(|i| (i, *coefficient))
-                .ok_or_else(|| format!("unknown species `{name}`: declare it among the species"))
+            index
+                .get(name)
+                .map(|&i| (i, *coefficient))
+                .ok_or_else(|| unknown_species(name, index.keys().map(String::as_str)))
         })
         .collect()
 }

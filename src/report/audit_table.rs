@@ -41,7 +41,7 @@ fn write_steps(out: &mut String, network: &Network, audit: &Audit) {
     let _ = writeln!(
         out,
         "  {:>4}  {:<width$}  {:>12}  {:>12}  {:>12}  units (kf; kr; Kc)",
-        "step", "equation", "kf", "kr", "kf/kr"
+        "step", "scheme", "kf", "kr", "kf/kr"
     );
     for s in &audit.steps {
         let kr = if s.reversible {

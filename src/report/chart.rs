@@ -7,7 +7,7 @@ use crate::units::TimeUnit;
 use super::figure::{Band, Figure, Level, Mark, Pattern, Series};
 use super::table::{busiest_steps, output_times, peak_forward_rates, step_rates};
 use super::terminal_time;
-use crate::format::percent;
+use crate::format::{count, percent};
 
 /// Most curves drawn on one chart; the species with the largest change are kept.
 pub const MAX_CURVES: usize = 12;
@@ -514,7 +514,7 @@ fn step_key(result: &RunResult, shown: &[usize]) -> Vec<String> {
         .collect();
     let hidden = result.network.reactions.len() - shown.len();
     if hidden > 0 {
-        notes.push(format!("{hidden} slower steps not shown"));
+        notes.push(format!("{} not shown", count(hidden, "slower step")));
     }
     notes
 }

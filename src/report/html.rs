@@ -7,7 +7,7 @@ use crate::run::RunResult;
 
 use super::summary::{nonlinear_approach_note, relaxation_estimates, stop_description};
 use super::{format_duration, CAUTIONS};
-use crate::format::number;
+use crate::format::{count, number};
 
 /// Everything the report needs beside the run itself.
 pub struct ReportInputs<'a> {
@@ -309,8 +309,17 @@ fn solver(h: &mut String, result: &RunResult, inputs: &ReportInputs<'_>) {
     let _ = writeln!(h, "<h2>Solver</h2>");
     let _ = writeln!(
         h,
-        "<p>{} with {}: {} steps ({} rejected, {} for negative concentrations), {} rate evaluations, {} Jacobians, {} LU factorisations, {} equilibrium checks; {:.3} s.</p>",
-        escape(&st.method), escape(&st.linear_solver), st.steps, st.rejected_steps, st.negative_rejections, st.rhs_evals, st.jacobian_evals, st.lu_factorizations, st.equilibrium_checks, st.seconds
+        "<p>{} with {}: {} ({} rejected, {} for negative concentrations), {}, {}, {}, {}; {:.3} s.</p>",
+        escape(&st.method),
+        escape(&st.linear_solver),
+        count(st.steps, "step"),
+        st.rejected_steps,
+        st.negative_rejections,
+        count(st.rhs_evals, "rate evaluation"),
+        count(st.jacobian_evals, "Jacobian"),
+        count(st.lu_factorizations, "LU factorisation"),
+        count(st.equilibrium_checks, "equilibrium check"),
+        st.seconds
     );
     let laws: Vec<String> = result
         .stoichiometry

@@ -171,9 +171,8 @@ pub fn refuse_existing<'a>(dir: &Path, names: impl IntoIterator<Item = &'a str>)
 /// unless `force`.
 pub fn write_new_file(path: &Path, bytes: &[u8], force: bool) -> Result<(), Error> {
     if path.exists() && !force {
-        return Err(Error::OutputExists {
+        return Err(Error::FileExists {
             path: path.to_path_buf(),
-            existing: "the file exists".into(),
         });
     }
     let write_error = |e: std::io::Error| Error::Write {

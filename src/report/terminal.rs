@@ -3,6 +3,7 @@
 use std::fmt::Write;
 use std::path::PathBuf;
 
+use crate::format::count;
 use crate::run::RunResult;
 
 use super::summary::{nonlinear_approach_note, relaxation_estimates, stop_description};
@@ -147,8 +148,8 @@ fn write_audit_brief(out: &mut String, result: &RunResult) {
     } else {
         let _ = writeln!(
             out,
-            "  audit of the rate constants ({} findings; `kinequil check` for details):",
-            findings.len()
+            "  audit of the rate constants ({}; `kinequil check` for details):",
+            count(findings.len(), "finding")
         );
         for f in findings.iter().take(5) {
             let _ = writeln!(out, "    - {f}");
@@ -161,13 +162,13 @@ fn write_solver(out: &mut String, result: &RunResult, files: &[PathBuf]) {
     let st = &result.solution.stats;
     let _ = writeln!(
         out,
-        "  solver: {}, {}; {} steps ({} rejected), {} rate evaluations, {} Jacobians, {} LU; {:.3} s",
+        "  solver: {}, {}; {} ({} rejected), {}, {}, {} LU; {:.3} s",
         st.method,
         st.linear_solver,
-        st.steps,
+        count(st.steps, "step"),
         st.rejected_steps,
-        st.rhs_evals,
-        st.jacobian_evals,
+        count(st.rhs_evals, "rate evaluation"),
+        count(st.jacobian_evals, "Jacobian"),
         st.lu_factorizations,
         st.seconds
     );
