@@ -53,14 +53,24 @@ pub fn change_scales(trajectory: &Trajectory, equilibrium: &[f64], noise: &[f64]
 
 /// For each tolerance, the earliest time after which every species stays within the band.
 /// `equilibrium` is the reference composition; `noise` the integration tolerance per species.
+/// Only the species in `judged` count when it is given (a trace side product need not set the
+/// hold time).
 pub fn time_to_equilibrium(
     trajectory: &Trajectory,
     equilibrium: &[f64],
     noise: &[f64],
     tolerances: &[f64],
     names: &[String],
+    judged: Option<&[usize]>,
 ) -> Vec<Settling> {
-    let scales = change_scales(trajectory, equilibrium, noise);
+    let mut scales = change_scales(trajectory, equilibrium, noise);
+    if let Some(judged) = judged {
+        for (i, scale) in scales.iter_mut().enumerate() {
+            if !judged.contains(&i) {
+                *scale = None;
+            }
+        }
+    }
     tolerances
         .iter()
         .map(|&tol| {

@@ -59,6 +59,7 @@ mod study;
 mod sweep;
 mod uncertainty;
 mod units;
+mod verdict;
 
 /// The command line behind the `kinequil` binary; not part of the library's surface.
 #[doc(hidden)]
@@ -99,6 +100,7 @@ pub use study::{
 pub use sweep::{at_point, grid, Axis, Varied};
 pub use uncertainty::Sampler;
 pub use units::parse_quantity;
+pub use verdict::{limiting_reagent, Conversion, HoldVerdict, Peak, Yield};
 
 /// The cautions every report carries.
 pub const CAUTIONS: [&str; 4] = [

@@ -11,6 +11,7 @@ use crate::network::Network;
 use crate::relaxation::{self, Mode};
 use crate::stoich::Stoichiometry;
 use crate::units::{ConcentrationUnit, TimeUnit};
+use crate::verdict::{self, Conversion, HoldVerdict, Peak};
 
 /// What the user asked for.
 #[derive(Debug, Clone)]
@@ -34,6 +35,8 @@ pub struct RunSettings {
     pub output_every: Option<f64>,
     /// Wall-clock budget for the integration, s (None: no limit).
     pub max_seconds: Option<f64>,
+    /// Species that judge time to equilibrium and the hold-time verdict (None: every species).
+    pub settle_on: Option<Vec<usize>>,
 }
 
 /// Units of time and concentration for tables and charts (the JSON summary stays in s and mol/L).
@@ -65,6 +68,7 @@ impl Default for RunSettings {
             output_times: Vec::new(),
             output_every: None,
             max_seconds: None,
+            settle_on: None,
         }
     }
 }
@@ -100,6 +104,12 @@ pub struct RunResult {
     pub progress: Vec<Option<f64>>,
     /// The consistency audit of the rate constants (default tolerance).
     pub audit: Audit,
+    /// How far from equilibrium at the hold time (`until`), when one was given and reached.
+    pub verdict: Option<HoldVerdict>,
+    /// Conversion of the main reaction's limiting reagent and its yields.
+    pub conversion: Option<Conversion>,
+    /// Species passing through a maximum above both their start and their end.
+    pub peaks: Vec<Peak>,
 }
 
 impl RunResult {
@@ -189,6 +199,13 @@ pub fn run(network: &Network, settings: &RunSettings) -> Result<RunResult, Error
         &atol,
         settings.rtol,
     );
+    let verdict = settings
+        .until
+        .filter(|&t| t == final_time)
+        .and_then(|t| verdict::hold_verdict(t, &progress, settings.settle_on.as_deref(), &names));
+    let conversion = verdict::conversion(network, &final_state, reference);
+    let end = reference.unwrap_or(trajectory.last_state());
+    let peaks = verdict::peaks(trajectory, end, &atol, settings.rtol, &names);
     let settings = with_output_times(settings, final_time);
     Ok(RunResult {
         network: network.clone(),
@@ -207,6 +224,9 @@ pub fn run(network: &Network, settings: &RunSettings) -> Result<RunResult, Error
         relaxation,
         progress,
         audit: audit::audit(network, audit::DEFAULT_TOL_KJ, audit::Adjust::Kr),
+        verdict,
+        conversion,
+        peaks,
     })
 }
 
@@ -256,7 +276,14 @@ fn settling(
     match reference {
         Some(eq) => {
             let noise = noise_levels(eq, atol, settings.rtol);
-            analysis::time_to_equilibrium(trajectory, eq, &noise, &settings.tolerances, names)
+            analysis::time_to_equilibrium(
+                trajectory,
+                eq,
+                &noise,
+                &settings.tolerances,
+                names,
+                settings.settle_on.as_deref(),
+            )
         }
         None => settings
             .tolerances

@@ -129,3 +129,78 @@ fn old_key_names_point_to_the_new_ones() {
         "{stderr}"
     );
 }
+
+#[test]
+fn the_hold_time_verdict_conversion_and_yield_follow_the_closed_form() {
+    // A <=> B, kf 2, kr 1 from A = 1 (textbook closed form): A(t) − A_eq = (2/3) e^(−3t), so at
+    // the hold time t a share e^(−3t) of every species' change remains; conversion of A is
+    // 1 − A(t) and the yield of B the same; both 2/3 at equilibrium. RODAS4 at rtol 1e-8: the
+    // shares within 1e-6 of the closed form.
+    let t = 0.5;
+    let result = crate::util::run_with(ISOMERISATION, 1e-8, 1e-14, Some(t));
+    let verdict = result.verdict.as_ref().expect("a verdict at the hold time");
+    assert_eq!(verdict.time, t);
+    assert!((verdict.remaining - (-3.0 * t).exp()).abs() < 1e-6, "{verdict:?}");
+    let conversion = result.conversion.as_ref().expect("A is the limiting reagent");
+    assert_eq!(conversion.reagent, "A");
+    let exact = 2.0 / 3.0 * (1.0 - (-3.0 * t).exp());
+    assert!((conversion.at_final - exact).abs() < 1e-6);
+    assert!((conversion.at_equilibrium.unwrap() - 2.0 / 3.0).abs() < 1e-9);
+    assert_eq!(conversion.yields[0].product, "B");
+    assert!((conversion.yields[0].at_final - exact).abs() < 1e-6);
+    assert!(
+        result.peaks.is_empty(),
+        "a first-order approach has no maximum: {:?}",
+        result.peaks
+    );
+}
+
+#[test]
+fn an_intermediate_maximum_is_found_where_the_closed_form_puts_it() {
+    // A => B => C, k1 = 2, k2 = 1, A0 = 1 (consecutive first-order reactions, textbook closed
+    // form): B(t) = 2 (e^(−t) − e^(−2t)), largest at t = ln 2 with B = 1/2. The time within
+    // 0.5 % (the maximum is flat: the interpolant is sampled 64 times per step), the value
+    // within 1e-6.
+    let text = "[species]\nA = 1.0\nB = 0.0\nC = 0.0\n\n[[reaction]]\nscheme = \"A => B\"\nkf = 2.0\n\n[[reaction]]\nscheme = \"B => C\"\nkf = 1.0\n";
+    let result = crate::util::run_with(text, 1e-8, 1e-14, None);
+    let peak = result.peaks.iter().find(|p| p.species == "B").expect("B peaks");
+    assert!((peak.time - 2f64.ln()).abs() < 5e-3 * 2f64.ln(), "{peak:?}");
+    assert!((peak.value - 0.5).abs() < 1e-6, "{peak:?}");
+    assert_eq!(result.peaks.len(), 1, "only the intermediate: {:?}", result.peaks);
+}
+
+#[test]
+fn a_trace_side_product_need_not_set_the_hold_time() {
+    // A <=> B fast (kf 2, kr 1) and A <=> D slow (kf 1e-6, K 1e-3, so kr 1e-3): D ends at a
+    // trace (3e-4) and settles on a time scale of 1000 s, a thousand times later; judged on A and B only, time to equilibrium is
+    // that of the fast pair, whose closed form (the slow step barely touches it at 1 % and
+    // 10 %) gives ln(1/tol)/3 within 2 %.
+    let text = "[species]\nA = 1.0\nB = 0.0\nD = 0.0\n\n[[reaction]]\nscheme = \"A <=> B\"\nkf = 2.0\nkr = 1.0\n\n[[reaction]]\nscheme = \"A <=> D\"\nkf = 1e-6\nK = 1e-3\n";
+    let every = crate::util::run_with(text, 1e-8, 1e-14, None);
+    let settings = kinequil::RunSettings {
+        rtol: 1e-8,
+        atol: 1e-14,
+        settle_on: Some(vec![0, 1]),
+        ..kinequil::RunSettings::default()
+    };
+    let judged = kinequil::run(&crate::util::network(text), &settings).unwrap();
+    for (all, pair) in every.settling.iter().zip(&judged.settling).take(2) {
+        let (all, pair) = (all.seconds.unwrap(), pair.seconds.unwrap());
+        let exact = (1.0 / pair_tolerance(&judged, pair)).ln() / 3.0;
+        assert!((pair - exact).abs() < 0.02 * exact, "{pair} vs {exact}");
+        assert!(
+            all > 100.0 * pair,
+            "the trace sets the all-species time: {all} vs {pair}"
+        );
+    }
+}
+
+/// The tolerance whose settling time is `seconds`.
+fn pair_tolerance(result: &kinequil::RunResult, seconds: f64) -> f64 {
+    result
+        .settling
+        .iter()
+        .find(|s| s.seconds == Some(seconds))
+        .unwrap()
+        .tolerance
+}

@@ -238,7 +238,7 @@ fn summary_carries_stable_tags_beside_the_sentences() {
     assert!(demo["stop_reason"]
         .as_str()
         .unwrap()
-        .starts_with("equilibrium detected at"));
+        .starts_with("the solver ran to "));
     let robertson = case("robertson.toml");
     assert_eq!(robertson["stop_tag"], "horizon_reached");
     assert_eq!(robertson["equilibrium_tag"], "one_way_steps");

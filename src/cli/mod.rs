@@ -130,6 +130,11 @@ struct RunArgs {
     /// Also tabulate the state every this long (e.g. "30 min") in table_at_times.csv.
     #[arg(long, value_name = "INTERVAL")]
     pub every: Option<String>,
+    /// Judge time to equilibrium and the hold-time verdict on these species only
+    /// (comma-separated), or on `conversion` (the limiting reagent of the first reaction),
+    /// instead of on every species: a trace side product need not set the hold time.
+    #[arg(long, value_name = "A,B|conversion")]
+    pub settle_on: Option<String>,
     /// Species to plot (comma-separated) instead of those that change most.
     #[arg(long, value_name = "A,B,C")]
     pub species: Option<String>,
@@ -237,13 +242,13 @@ fn duration(option: &str, text: &str, unit: TimeUnit) -> Result<f64, Error> {
     Ok(seconds)
 }
 
-/// Species indices from a comma-separated list of names.
-fn species_list(network: &Network, list: &str) -> Result<Vec<usize>, Error> {
+/// Species indices from a comma-separated list of names given to `option`.
+fn species_list(network: &Network, list: &str, option: &str) -> Result<Vec<usize>, Error> {
     let mut chosen = Vec::new();
     for name in list.split(',').map(str::trim).filter(|n| !n.is_empty()) {
         let Some(i) = network.species_index(name) else {
             return Err(Error::Option {
-                option: "--species".into(),
+                option: option.into(),
                 message: network.unknown_species(name),
             });
         };
@@ -253,7 +258,7 @@ fn species_list(network: &Network, list: &str) -> Result<Vec<usize>, Error> {
     }
     if chosen.is_empty() {
         return Err(Error::Option {
-            option: "--species".into(),
+            option: option.into(),
             message: "name at least one species".into(),
         });
     }
@@ -283,8 +288,23 @@ fn positive_fraction(option: &str, x: f64) -> Result<f64, Error> {
 }
 
 fn run_command(args: RunArgs) -> Result<String, Error> {
-    let settings = run_settings(&args)?;
+    let mut settings = run_settings(&args)?;
     let network = Network::from_file_at(&args.case, temperature(&args.temperature)?)?;
+    settings.settle_on = match args.settle_on.as_deref() {
+        None => None,
+        Some("conversion") => match kinequil_limiting(&network) {
+            Some(i) => Some(vec![i]),
+            None => {
+                return Err(Error::Option {
+                    option: "--settle-on".into(),
+                    message:
+                        "the first reaction has no reactant present at the start, so no limiting reagent"
+                            .into(),
+                })
+            }
+        },
+        Some(list) => Some(species_list(&network, list, "--settle-on")?),
+    };
     let out = args
         .out
         .unwrap_or_else(|| PathBuf::from("output").join(network.case_name()));
@@ -298,7 +318,7 @@ fn run_command(args: RunArgs) -> Result<String, Error> {
     let chart = ChartOptions {
         time_axis: args.time_axis.into(),
         species: match &args.species {
-            Some(list) => Some(species_list(&network, list)?),
+            Some(list) => Some(species_list(&network, list, "--species")?),
             None => None,
         },
     };
@@ -361,7 +381,13 @@ fn run_settings(args: &RunArgs) -> Result<RunSettings, Error> {
             None => Vec::new(),
         },
         output_every,
+        settle_on: None,
     })
+}
+
+/// The main reaction's limiting reagent, by index.
+fn kinequil_limiting(network: &Network) -> Option<usize> {
+    crate::verdict::limiting_reagent(network).map(|(i, _)| i)
 }
 
 fn equilibrium_command(args: EquilibriumArgs) -> Result<Outcome, Error> {

@@ -5,8 +5,8 @@ use std::fmt::Write;
 
 use crate::run::RunResult;
 
-use super::summary::{nonlinear_approach_note, relaxation_estimates, stop_description};
-use super::{format_duration, CAUTIONS};
+use super::summary::{nonlinear_approach_note, relaxation_estimates, stop_description, verdict_lines};
+use super::CAUTIONS;
 use crate::format::{count, number};
 
 /// Everything the report needs beside the run itself.
@@ -147,28 +147,38 @@ fn composition(h: &mut String, result: &RunResult) {
     );
     let _ = writeln!(
         h,
-        "<table><tr><th class=\"text\">species</th><th>initial [mol/L]</th><th>at {} [mol/L]</th><th>equilibrium, solved [mol/L]</th><th>equilibrium, integrated [mol/L]</th></tr>",
-        escape(&format_duration(result.final_time))
+        "<table><tr><th class=\"text\">species</th><th>initial [{u}]</th><th>at {} [{u}]</th><th>equilibrium, solved [{u}]</th><th>equilibrium, integrated [{u}]</th></tr>",
+        escape(&result.time_text(result.final_time)),
+        u = escape(result.settings.units.concentration.symbol())
     );
+    let scale = result.settings.units.concentration.mol_per_l();
     let trajectory = &result.solution.trajectory;
     for (i, name) in names.iter().enumerate() {
         let solved = result
             .solved
             .as_ref()
-            .map_or("&ndash;".to_string(), |e| number(e.concentrations[i]));
+            .map_or("&ndash;".to_string(), |e| number(e.concentrations[i] / scale));
         let integrated = result
             .equilibrium
             .as_ref()
-            .map_or("&ndash;".to_string(), |e| number(e[i]));
+            .map_or("&ndash;".to_string(), |e| number(e[i] / scale));
         let _ = writeln!(
             h,
             "<tr><td class=\"text\">{}</td><td>{}</td><td>{}</td><td>{solved}</td><td>{integrated}</td></tr>",
             escape(name),
-            number(trajectory.states[0][i]),
-            number(result.final_state[i])
+            number(trajectory.states[0][i] / scale),
+            number(result.final_state[i] / scale)
         );
     }
     let _ = writeln!(h, "</table>");
+    let lines = verdict_lines(result);
+    if !lines.is_empty() {
+        let items: Vec<String> = lines
+            .iter()
+            .map(|l| format!("<li>{}</li>", escape(l.trim())))
+            .collect();
+        let _ = writeln!(h, "<h3>Verdict</h3><ul class=\"verdict\">{}</ul>", items.join(""));
+    }
     match (&result.solved, result.disagreement) {
         (Ok(_), Some(d)) if result.disagrees => {
             let _ = writeln!(h, "<p class=\"warning\">The integrated end state and the solved equilibrium differ by up to {d:.2e} (relative), more than the tolerances allow.</p>");
@@ -208,7 +218,7 @@ fn time_to_equilibrium(h: &mut String, result: &RunResult) {
             .find(|e| e.tolerance == s.tolerance)
             .map_or("&ndash;".to_string(), |e| number(e.seconds));
         let (seconds, readable) = match s.seconds {
-            Some(t) => (number(t), escape(&format_duration(t))),
+            Some(t) => (number(t), escape(&result.time_text(t))),
             None => ("not reached".to_string(), String::new()),
         };
         let _ = writeln!(

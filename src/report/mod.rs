@@ -41,6 +41,25 @@ pub const RUN_FILES: [&str; 14] = [
     "report.html",
 ];
 
+impl RunResult {
+    /// A time for people: in the chosen time unit, or in seconds with a friendlier unit beside
+    /// when the unit is the default.
+    pub fn time_text(&self, seconds: f64) -> String {
+        let unit = self.settings.units.time;
+        if unit == crate::units::TimeUnit::S {
+            crate::format::format_duration(seconds)
+        } else {
+            let value = crate::format::significant(seconds / unit.seconds());
+            let value = if value.contains('.') && !value.contains('e') {
+                value.trim_end_matches('0').trim_end_matches('.').to_string()
+            } else {
+                value
+            };
+            format!("{value} {}", unit.symbol())
+        }
+    }
+}
+
 /// SHA-256 of the input text, as lowercase hex.
 pub fn sha256_hex(text: &str) -> String {
     use sha2::Digest;

@@ -1,5 +1,6 @@
 //! The JSON summary (`summary.json`): stable keys that scripts can rely on.
 
+use crate::verdict::{Conversion, HoldVerdict, Peak};
 use serde::Serialize;
 use serde_json::Map;
 
@@ -9,7 +10,7 @@ use crate::integrate::{Stats, StopReason};
 use crate::relaxation::Mode;
 use crate::run::RunResult;
 
-use super::{format_duration, trim_percent, CAUTIONS};
+use super::{trim_percent, CAUTIONS};
 
 #[derive(Debug, Serialize)]
 pub struct Summary {
@@ -54,6 +55,16 @@ pub struct Summary {
     pub relaxation_estimate_note: Option<String>,
     /// Per species, the fraction of its total change completed at `final_time`.
     pub progress_at_final_time: Map<String, serde_json::Value>,
+    /// At the hold time (`--until`): the largest share of its change any judged species still
+    /// has to make, and which.
+    pub hold_time_verdict: Option<HoldVerdict>,
+    /// Species judging time to equilibrium (`--settle-on`); every species when absent.
+    pub judged_species: Option<Vec<String>>,
+    /// Conversion of the first reaction's limiting reagent and that reaction's yields, at
+    /// `final_time` and at equilibrium (fractions).
+    pub conversion: Option<Conversion>,
+    /// Species passing through a maximum above both their start and their end (mol/L, s).
+    pub maxima: Vec<Peak>,
     /// Partial pressures of the gases at `final_time`, bar (closed rigid vessel), when there are gases.
     pub final_partial_pressures_bar: Option<Map<String, serde_json::Value>>,
     pub final_total_pressure_bar: Option<f64>,
@@ -180,28 +191,149 @@ impl EquilibriumSolver {
     }
 }
 
+/// The practitioner's reading of a run as sentences: the verdict at the hold time with when
+/// each tolerance is reached, the conversion of the limiting reagent with the yields, and the
+/// maxima above where a species ends. Shared by the terminal and the HTML report.
+pub fn verdict_lines(result: &RunResult) -> Vec<String> {
+    let mut lines = Vec::new();
+    let settled = end_word(result);
+    if let Some(v) = &result.verdict {
+        lines.push(format!(
+            "verdict at the hold time {}: every species{} within {} of its total change (furthest: {})",
+            result.time_text(v.time),
+            judged_on(result),
+            percent_text(v.remaining.max(0.0)),
+            v.furthest
+        ));
+        let reached: Vec<String> = result
+            .settling
+            .iter()
+            .map(|s| match s.seconds {
+                Some(t) if t <= v.time => format!(
+                    "{}% reached at {} (before the hold time)",
+                    trim_percent(s.tolerance),
+                    result.time_text(t)
+                ),
+                Some(t) => format!(
+                    "{}% is reached at {}",
+                    trim_percent(s.tolerance),
+                    result.time_text(t)
+                ),
+                None => format!("{}% not reached", trim_percent(s.tolerance)),
+            })
+            .collect();
+        if !reached.is_empty() {
+            lines.push(format!("  {}", reached.join("; ")));
+        }
+    }
+    if let Some(c) = &result.conversion {
+        let at_eq = c
+            .at_equilibrium
+            .map_or(String::new(), |x| format!(", {} at {settled}", percent_text(x)));
+        lines.push(format!(
+            "conversion of {} (limiting reagent of the first reaction): {} at {}{at_eq}",
+            c.reagent,
+            percent_text(c.at_final),
+            result.time_text(result.final_time)
+        ));
+        let yields: Vec<String> = c
+            .yields
+            .iter()
+            .map(|y| {
+                let eq = y
+                    .at_equilibrium
+                    .map_or(String::new(), |x| format!(" ({} at {settled})", percent_text(x)));
+                format!("{} {}{eq}", y.product, percent_text(y.at_final))
+            })
+            .collect();
+        if !yields.is_empty() {
+            lines.push(format!("  yield on {}: {}", c.reagent, yields.join(", ")));
+        }
+    }
+    let unit = result.settings.units.concentration;
+    let (scale, symbol) = (unit.mol_per_l(), unit.symbol());
+    for p in &result.peaks {
+        let after = if p.end_value > 0.01 * p.value {
+            format!(
+                "{} above where it ends, {} {symbol}",
+                percent_text(p.value / p.end_value - 1.0),
+                crate::format::with_digits(p.end_value / scale, 5)
+            )
+        } else {
+            format!(
+                "then falls to {} {symbol}",
+                crate::format::with_digits(p.end_value / scale, 3)
+            )
+        };
+        lines.push(format!(
+            "maximum: {} reaches {} {symbol} at {}, {after}",
+            p.species,
+            crate::format::with_digits(p.value / scale, 5),
+            result.time_text(p.time)
+        ));
+    }
+    lines
+}
+
+/// " judged" with the species list when time to equilibrium is judged on chosen species.
+pub fn judged_on(result: &RunResult) -> String {
+    match &result.settings.settle_on {
+        Some(list) => {
+            let names: Vec<&str> = list
+                .iter()
+                .map(|&i| result.network.species[i].name.as_str())
+                .collect();
+            format!(" judged ({})", names.join(", "))
+        }
+        None => String::new(),
+    }
+}
+
+/// A fraction as a percentage with one decimal.
+fn percent_text(x: f64) -> String {
+    format!("{:.1}%", 100.0 * x)
+}
+/// "equilibrium", or "steady state" for a network whose end is not an equilibrium (one-way
+/// steps, feeds, constants that break detailed balance).
+pub fn end_word(result: &RunResult) -> &'static str {
+    if result.solved.is_ok() {
+        "equilibrium"
+    } else {
+        "steady state"
+    }
+}
+
+/// Where the integration ended and why, worded so that the solver's stopping point is not
+/// mistaken for a hold time.
 pub fn stop_description(result: &RunResult) -> String {
     if let (Err(_), Some(t)) = (&result.solved, result.solution.equilibrium_at) {
         return format!(
-            "steady state reached at {} (not an equilibrium: see below)",
-            format_duration(t)
+            "the solver reached a steady state at {} (not an equilibrium: see below)",
+            result.time_text(t)
         );
     }
+    let hold = result.time_text(result.final_time);
     match (result.solution.stop, result.solution.equilibrium_at) {
-        (StopReason::Equilibrium, Some(t)) => format!("equilibrium detected at {}", format_duration(t)),
-        (StopReason::ReachedTime, Some(t)) => format!(
-            "reached the requested time; equilibrium detected at {}",
-            format_duration(t)
+        (StopReason::Equilibrium, Some(t)) => format!(
+            "the solver ran to {}, where the state had settled to equilibrium within its tolerances \
+             (the solver's stopping point, not a hold time: see time to equilibrium)",
+            result.time_text(t)
         ),
-        (StopReason::ReachedTime, None) => "reached the requested time; equilibrium not detected".into(),
+        (StopReason::ReachedTime, Some(t)) => format!(
+            "state reported at the hold time {hold}; the solver went on to settle the equilibrium at {}",
+            result.time_text(t)
+        ),
+        (StopReason::ReachedTime, None) => {
+            format!("state reported at the hold time {hold}; the equilibrium was not settled")
+        }
         (StopReason::MaxTime, _) => horizon_description(result),
         (StopReason::TimeBudget, _) => format!(
             "stopped by the --max-seconds budget at {} before equilibrium was detected",
-            format_duration(result.solution.trajectory.end_time())
+            result.time_text(result.solution.trajectory.end_time())
         ),
         (StopReason::MaxSteps, _) => format!(
             "step budget used up at {}",
-            format_duration(result.solution.trajectory.end_time())
+            result.time_text(result.solution.trajectory.end_time())
         ),
         (StopReason::Equilibrium, None) => "equilibrium detected".into(),
     }
@@ -209,7 +341,7 @@ pub fn stop_description(result: &RunResult) -> String {
 
 /// Why the integration ended without equilibrium, with the figures that say what would reach it.
 fn horizon_description(result: &RunResult) -> String {
-    let end = format_duration(result.solution.trajectory.end_time());
+    let end = result.time_text(result.solution.trajectory.end_time());
     let slowest = result.relaxation.as_ref().ok().and_then(|m| m.first());
     let tightest = result
         .settings
@@ -220,9 +352,9 @@ fn horizon_description(result: &RunResult) -> String {
     match (&result.solved, slowest) {
         (Ok(_), Some(mode)) if tightest.is_finite() => format!(
             "equilibrium not reached by {end}: slowest relaxation time {}, so {}% needs about {}; use --until",
-            format_duration(mode.tau_seconds),
+            result.time_text(mode.tau_seconds),
             trim_percent(tightest),
-            format_duration(mode.tau_seconds * (1.0 / tightest).ln())
+            result.time_text(mode.tau_seconds * (1.0 / tightest).ln())
         ),
         (Ok(_), _) => format!("equilibrium not reached by {end}; use --until to integrate longer"),
         (Err(NoEquilibrium::OneWaySteps(_)), _) => format!(
@@ -249,9 +381,9 @@ pub fn nonlinear_approach_note(result: &RunResult) -> Option<String> {
             format!(
                 "the approach is not in the linear regime: at {}% the estimate τ·ln(1/tol) = {} is {} the integrated {}; use the integrated times",
                 trim_percent(s.tolerance),
-                format_duration(e),
+                result.time_text(e),
                 if ratio > 1.0 { format!("{ratio:.1} times") } else { format!("1/{:.1} of", 1.0 / ratio) },
-                format_duration(t)
+                result.time_text(t)
             )
         })
     })
@@ -321,6 +453,14 @@ impl Summary {
                 .zip(&result.progress)
                 .map(|(n, p)| (n.clone(), serde_json::json!(p)))
                 .collect(),
+            hold_time_verdict: result.verdict.clone(),
+            judged_species: result
+                .settings
+                .settle_on
+                .as_ref()
+                .map(|list| list.iter().map(|&i| names[i].clone()).collect()),
+            conversion: result.conversion.clone(),
+            maxima: result.peaks.clone(),
             final_partial_pressures_bar: result.pressures_bar(&result.final_state).map(|(partial, _)| {
                 partial
                     .into_iter()

@@ -6,8 +6,10 @@ use std::path::PathBuf;
 use crate::format::count;
 use crate::run::RunResult;
 
-use super::summary::{nonlinear_approach_note, relaxation_estimates, stop_description};
-use super::{format_duration, significant, trim_percent, with_digits, CAUTIONS};
+use super::summary::{
+    end_word, judged_on, nonlinear_approach_note, relaxation_estimates, stop_description, verdict_lines,
+};
+use super::{trim_percent, with_digits, CAUTIONS};
 
 /// Relaxation modes listed on the terminal (all of them are in summary.json).
 const MODES_SHOWN: usize = 5;
@@ -16,6 +18,7 @@ pub fn render(result: &RunResult, files: &[PathBuf]) -> String {
     let mut out = String::new();
     write_header(&mut out, result);
     let _ = writeln!(out);
+    write_verdict(&mut out, result);
     write_agreement(&mut out, result);
     let _ = writeln!(out);
     write_settling(&mut out, result);
@@ -47,31 +50,40 @@ fn write_header(out: &mut String, result: &RunResult) {
         net.temperature,
         net.source.display()
     );
-    let _ = writeln!(out, "  stopped: {}", stop_description(result));
+    let _ = writeln!(out, "  run: {}", stop_description(result));
     let _ = writeln!(out);
+    let c_unit = result.settings.units.concentration;
+    let scale = c_unit.mol_per_l();
     let width = names.iter().map(|n| n.len()).max().unwrap_or(7).max(7);
     let _ = writeln!(
         out,
         "  {:<width$}  {:>14}  {:>14}  {:>14}",
         "species",
-        "initial mol/L",
-        format!("at {} s", significant(result.final_time)),
-        "equilibrium"
+        format!("initial {}", c_unit.symbol()),
+        format!("at {}", result.time_text(result.final_time)),
+        end_word(result)
     );
     for (i, name) in names.iter().enumerate() {
         let eq = match (&result.solved, &result.equilibrium) {
-            (Ok(solved), _) => with_digits(solved.concentrations[i], 7),
-            (Err(_), Some(integrated)) => with_digits(integrated[i], 7),
+            (Ok(solved), _) => with_digits(solved.concentrations[i] / scale, 7),
+            (Err(_), Some(integrated)) => with_digits(integrated[i] / scale, 7),
             (Err(_), None) => "-".to_string(),
         };
         let _ = writeln!(
             out,
             "  {:<width$}  {:>14}  {:>14}  {:>14}",
             name,
-            with_digits(result.solution.trajectory.states[0][i], 7),
-            with_digits(result.final_state[i], 7),
+            with_digits(result.solution.trajectory.states[0][i] / scale, 7),
+            with_digits(result.final_state[i] / scale, 7),
             eq
         );
+    }
+}
+
+/// The practitioner's reading: the hold-time verdict, conversion and yields, and maxima.
+fn write_verdict(out: &mut String, result: &RunResult) {
+    for line in verdict_lines(result) {
+        let _ = writeln!(out, "  {line}");
     }
 }
 
@@ -81,8 +93,8 @@ fn write_hold_time(out: &mut String, result: &RunResult) {
     if let Some(until) = result.settings.until {
         let _ = writeln!(
             out,
-            "  at the requested time {}, share of each species' total change completed:",
-            format_duration(until)
+            "  at the hold time {}, share of each species' total change completed:",
+            result.time_text(until)
         );
         let parts: Vec<String> = names
             .iter()
@@ -215,20 +227,22 @@ fn write_agreement(out: &mut String, result: &RunResult) {
 fn write_settling(out: &mut String, result: &RunResult) {
     let _ = writeln!(
         out,
-        "  time to equilibrium (every species within the fraction of its total change):"
+        "  time to {} (every species{} within the fraction of its total change):",
+        end_word(result),
+        judged_on(result)
     );
     let estimates = relaxation_estimates(result);
     for s in &result.settling {
         let when = match (s.seconds, &s.limiting_species) {
-            (Some(t), Some(sp)) => format!("{}, last to settle: {sp}", format_duration(t)),
-            (Some(t), None) => format_duration(t),
+            (Some(t), Some(sp)) => format!("{}, last to settle: {sp}", result.time_text(t)),
+            (Some(t), None) => result.time_text(t),
             (None, _) => "not reached".into(),
         };
         let estimate = estimates
             .iter()
             .find(|e| e.tolerance == s.tolerance)
             .map_or(String::new(), |e| {
-                format!("   [τ·ln(1/tol) = {}]", format_duration(e.seconds))
+                format!("   [τ·ln(1/tol) = {}]", result.time_text(e.seconds))
             });
         let percent = format!("{}%", trim_percent(s.tolerance));
         let _ = writeln!(out, "    within {percent:>7}: {when}{estimate}");
@@ -255,7 +269,7 @@ fn write_relaxation(out: &mut String, result: &RunResult) {
                 let _ = writeln!(
                     out,
                     "    τ = {:<20} moves {}; set by {}",
-                    format_duration(mode.tau_seconds),
+                    result.time_text(mode.tau_seconds),
                     species.join(", "),
                     steps.join(", ")
                 );
