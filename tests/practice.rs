@@ -204,3 +204,25 @@ fn pair_tolerance(result: &kinequil::RunResult, seconds: f64) -> f64 {
         .unwrap()
         .tolerance
 }
+
+#[test]
+fn far_extrapolation_and_a_title_naming_another_temperature_are_flagged() {
+    // The bundled demo gives K by van 't Hoff at 60 degC and says 60 degC in its title.
+    let case = concat!(env!("CARGO_MANIFEST_DIR"), "/cases/demo.toml");
+    let at = |t: &str| {
+        kinequil::Network::from_file_at(std::path::Path::new(case), Some(t.parse::<f64>().unwrap())).unwrap()
+    };
+    assert!(
+        at("333.15").temperature_cautions().is_empty(),
+        "at its own temperature nothing to say"
+    );
+    let near = at("353.15").temperature_cautions();
+    assert_eq!(near.len(), 1, "20 K away: only the title: {near:?}");
+    assert!(near[0].contains("title names 333.15 K"), "{near:?}");
+    let far = at("393.15").temperature_cautions();
+    assert!(
+        far.iter()
+            .any(|c| c.contains("van 't Hoff from 333.15 K to 393.15 K, 60 K away")),
+        "{far:?}"
+    );
+}

@@ -56,6 +56,9 @@ pub mod limits {
     pub const MAX_EQUILIBRIUM_CONSTANT: f64 = 1e250;
     /// Temperatures, K: the isothermal ideal model has no meaning outside this range.
     pub const TEMPERATURE: (f64, f64) = (100.0, 5000.0);
+    /// A van 't Hoff extrapolation further than this from its reference temperature (K) is
+    /// flagged: a constant dH rarely holds over more (common practice).
+    pub const EXTRAPOLATION_K: f64 = 50.0;
 }
 
 /// How a species enters rate laws and equilibrium expressions.
@@ -347,6 +350,41 @@ impl Network {
 
     pub fn n_species(&self) -> usize {
         self.species.len()
+    }
+
+    /// Cautions about the run temperature: equilibrium constants carried by van 't Hoff more
+    /// than [`limits::EXTRAPOLATION_K`] from where they were given, and a title that names a
+    /// temperature other than the run's (a title kept from another case misleads the report).
+    pub fn temperature_cautions(&self) -> Vec<String> {
+        let t = self.temperature;
+        let mut cautions: Vec<String> = self
+            .reactions
+            .iter()
+            .enumerate()
+            .filter_map(|(j, r)| match r.k_spec.as_ref().map(|k| k.form) {
+                Some(given::KForm::VantHoff { at, .. }) if (t - at).abs() > limits::EXTRAPOLATION_K => {
+                    Some(format!(
+                        "K of step {} ({}) is carried by van 't Hoff from {:.2} K to {:.2} K, {:.0} K away, \
+                     with dH held constant: check it against data at the run temperature",
+                        j + 1,
+                        r.equation,
+                        at,
+                        t,
+                        (t - at).abs()
+                    ))
+                }
+                _ => None,
+            })
+            .collect();
+        if let Some(named) = temperature_in_text(&self.title) {
+            if (named - t).abs() > 0.5 {
+                cautions.push(format!(
+                    "the title names {:.2} K but the run is at {:.2} K",
+                    named, t
+                ));
+            }
+        }
+        cautions
     }
 
     /// "unknown species" for `name`, with the nearest declared name when one is close.
@@ -1304,4 +1342,32 @@ pub fn net_change(reactants: &[(usize, f64)], products: &[(usize, f64)]) -> Vec<
     net.retain(|&(_, c)| c != 0.0);
     net.sort_by_key(|&(i, _)| i);
     net
+}
+
+/// A temperature written in free text ("60 degC", "60 °C", "333 K"), in K: the first number
+/// directly followed by a temperature unit.
+fn temperature_in_text(text: &str) -> Option<f64> {
+    let words: Vec<&str> = text.split_whitespace().collect();
+    for (k, word) in words.iter().enumerate() {
+        let word = word.trim_matches(|c: char| c == ',' || c == '(' || c == ')' || c == ';');
+        let (number, unit) = match word.find(|c: char| !(c.is_ascii_digit() || c == '.' || c == '-')) {
+            Some(0) => continue,
+            Some(split) => (&word[..split], &word[split..]),
+            None => (
+                word,
+                words
+                    .get(k + 1)
+                    .map_or("", |w| w.trim_matches(|c: char| c == ',' || c == ')' || c == ';')),
+            ),
+        };
+        let Ok(value) = number.parse::<f64>() else {
+            continue;
+        };
+        match unit {
+            "degC" | "°C" | "C" => return Some(value + 273.15),
+            "K" => return Some(value),
+            _ => {}
+        }
+    }
+    None
 }

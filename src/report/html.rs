@@ -56,6 +56,9 @@ pub fn render(result: &RunResult, inputs: &ReportInputs<'_>) -> String {
     let mut h = String::new();
     head(&mut h, result, inputs);
     conditions(&mut h, result);
+    for caution in result.network.temperature_cautions() {
+        let _ = writeln!(h, "<p class=\"warning\">Caution: {}.</p>", escape(&caution));
+    }
     composition(&mut h, result);
     time_to_equilibrium(&mut h, result);
     relaxation(&mut h, result);

@@ -22,6 +22,9 @@ pub struct Summary {
     pub units: Units,
     pub model: String,
     pub cautions: Vec<String>,
+    /// Cautions about the run temperature (van 't Hoff far from its reference, a title naming
+    /// another temperature).
+    pub temperature_cautions: Vec<String>,
     /// Time of the reported state, s.
     pub final_time: f64,
     pub initial: Map<String, serde_json::Value>,
@@ -421,6 +424,7 @@ impl Summary {
             },
             model: "isothermal, constant-volume batch; ideal mass-action kinetics".into(),
             cautions: CAUTIONS.iter().map(|c| c.to_string()).collect(),
+            temperature_cautions: result.network.temperature_cautions(),
             final_time: result.final_time,
             initial: by_species(&names, &trajectory.states[0]),
             final_state: by_species(&names, &result.final_state),

@@ -50,6 +50,9 @@ fn write_header(out: &mut String, result: &RunResult) {
         net.temperature,
         net.source.display()
     );
+    for caution in net.temperature_cautions() {
+        let _ = writeln!(out, "  CAUTION: {caution}");
+    }
     let _ = writeln!(out, "  run: {}", stop_description(result));
     let _ = writeln!(out);
     let c_unit = result.settings.units.concentration;
