@@ -226,3 +226,53 @@ fn far_extrapolation_and_a_title_naming_another_temperature_are_flagged() {
         "{far:?}"
     );
 }
+
+#[test]
+fn charts_mark_the_hold_time_and_keep_the_limiting_step() {
+    // Seven fast isomerisations in a chain and one slow one at the end: the slow step sets the
+    // slowest relaxation and carries the smallest rates, so the six busiest would leave it out.
+    let mut text = String::from("[species]\nS0 = 1.0\n");
+    for k in 1..=8 {
+        text += &format!("S{k} = 0.0\n");
+    }
+    for k in 1..=8 {
+        let kf = if k == 8 { 1e-3 } else { 1.0 + k as f64 };
+        text += &format!(
+            "\n[[reaction]]\nscheme = \"S{} <=> S{k}\"\nkf = {kf}\nK = 1.0\n",
+            k - 1
+        );
+    }
+    let dir = tempfile::tempdir().unwrap();
+    let case = write_case(dir.path(), "chain.toml", &text);
+    let out_dir = dir.path().join("o");
+    let out = kinequil(&[
+        "run",
+        &case,
+        "--until",
+        "2 h",
+        "--time-unit",
+        "h",
+        "--out",
+        out_dir.to_str().unwrap(),
+    ]);
+    assert_eq!(
+        out.status.code(),
+        Some(0),
+        "{}",
+        String::from_utf8_lossy(&out.stderr)
+    );
+    let quotients = std::fs::read_to_string(out_dir.join("quotients.svg")).unwrap();
+    assert!(
+        quotients.contains("step 8: S7 &lt;=&gt; S8"),
+        "the limiting step is shown"
+    );
+    assert!(
+        quotients.contains("2 slower steps not shown"),
+        "six shown of eight"
+    );
+    let concentrations = std::fs::read_to_string(out_dir.join("concentrations.svg")).unwrap();
+    assert!(
+        concentrations.contains("hold time 2 h"),
+        "the hold time is marked"
+    );
+}

@@ -13,8 +13,8 @@ use crate::format::{count, percent};
 pub const MAX_CURVES: usize = 12;
 /// Most steps on the rate and Q/K charts (two curves each on the rate chart).
 const MAX_STEPS: usize = 6;
-/// Style index of grey reference lines.
-const GREY: usize = 8;
+/// Style index of the grey reference lines: slate, the palette's neutral.
+const GREY: usize = 9;
 
 /// How the time axis is chosen.
 #[derive(Debug, Clone, Copy, PartialEq, Eq, Default)]
@@ -260,7 +260,15 @@ fn concentrations(result: &RunResult, frame: &Frame) -> Figure {
         series,
         levels,
         bands,
-        marks: Vec::new(),
+        marks: result
+            .settings
+            .until
+            .map(|t| Mark {
+                x: frame.x(t),
+                label: format!("hold time {}", terminal_time(t, frame.time_unit)),
+            })
+            .into_iter()
+            .collect(),
         notes,
         ..Figure::default()
     }
@@ -370,6 +378,7 @@ impl Rates {
         shown.extend(busiest_steps(&peaks, MAX_STEPS, |j| {
             result.network.reactions[j].runs_both_ways()
         }));
+        shown.extend(limiting_step(result));
         shown.sort_unstable();
         shown.dedup();
         let (forward, reverse) = step_rates(result, &times, &shown);
@@ -460,7 +469,16 @@ fn quotients(result: &RunResult, frame: &Frame, rates: &Rates) -> Option<Figure>
         let r = &result.network.reactions[j];
         r.runs_both_ways()
     };
-    let shown = busiest_steps(peaks, MAX_STEPS, reversible);
+    let mut shown = busiest_steps(peaks, MAX_STEPS, reversible);
+    // The step that sets the slowest relaxation is the one a hold time waits for: it is always
+    // shown, in place of the least busy one if need be.
+    if let Some(limiting) = limiting_step(result).filter(|&j| reversible(j) && !shown.contains(&j)) {
+        if shown.len() == MAX_STEPS {
+            shown.pop();
+        }
+        shown.push(limiting);
+        shown.sort_unstable();
+    }
     if shown.is_empty() {
         return None;
     }
@@ -500,6 +518,13 @@ fn quotients(result: &RunResult, frame: &Frame, rates: &Rates) -> Option<Figure>
         notes,
         ..Figure::default()
     })
+}
+
+/// The step with the largest share of the slowest relaxation mode.
+fn limiting_step(result: &RunResult) -> Option<usize> {
+    let mode = result.relaxation.as_ref().ok()?.first()?;
+    let name = &mode.steps.first()?.name;
+    result.network.reactions.iter().position(|r| &r.equation == name)
 }
 
 fn step_label(j: usize) -> String {

@@ -11,6 +11,7 @@ use std::sync::Once;
 use plotters::coord::types::RangedCoordf64;
 use plotters::coord::Shift;
 use plotters::prelude::*;
+use plotters::style::text_anchor::{HPos, Pos, VPos};
 
 /// Pixel size of every chart: readable when scaled to a report page.
 pub const SIZE: (u32, u32) = (1000, 620);
@@ -20,21 +21,24 @@ const FONT: &str = "sans-serif";
 /// The plot panel: linear coordinates (log axes are transformed before drawing).
 type Plot<'a, DB> = ChartContext<'a, DB, Cartesian2d<RangedCoordf64, RangedCoordf64>>;
 
-/// Our palette: twelve hues that stay apart on screen, with lightness alternating between
-/// neighbours so that greyscale print keeps them apart too.
+/// Our palette: twelve hues in an order of our own, lightness alternating between neighbours
+/// (relative luminance steps of at least 30 of 255) so that greyscale print keeps consecutive
+/// series apart, and dark/light pairs rather than red/green pairs carrying the difference, so
+/// that the common colour-vision deficiencies do too; line patterns and markers add a second
+/// cue (see [`style`]).
 const PALETTE: [(u8, u8, u8); 12] = [
-    (0x1b, 0x4f, 0x9c),
-    (0xd9, 0x5f, 0x0e),
-    (0x2a, 0x9d, 0x5c),
-    (0xb5, 0x1f, 0x3a),
-    (0x6a, 0x3d, 0x9a),
-    (0x8c, 0x6d, 0x31),
-    (0x0f, 0x9a, 0xb0),
-    (0xe0, 0xa1, 0x00),
-    (0x55, 0x55, 0x55),
-    (0xd4, 0x4f, 0xa0),
-    (0x1a, 0x1a, 0x1a),
-    (0x7f, 0xa8, 0x1e),
+    (0x00, 0x58, 0x5e), // deep teal
+    (0xe8, 0xa3, 0x3d), // amber
+    (0x3b, 0x3b, 0x98), // indigo
+    (0xd1, 0x49, 0x2e), // vermilion
+    (0x5f, 0xb0, 0xd8), // sky
+    (0x2b, 0x2b, 0x2b), // charcoal
+    (0xb8, 0x3b, 0x7d), // rose
+    (0x9a, 0xae, 0x3a), // olive-lime
+    (0x6b, 0x3e, 0x1f), // chocolate
+    (0x7d, 0x8a, 0x99), // slate
+    (0x2f, 0x7d, 0x3c), // pine
+    (0xc9, 0xb3, 0x7e), // sand
 ];
 
 /// Line patterns cycle with a period coprime to the palette's, so no two of the first twelve
@@ -187,9 +191,9 @@ impl Figure {
             .label_style((FONT, 14))
             .light_line_style(RGBColor(0xee, 0xee, 0xee))
             .bold_line_style(RGBColor(0xd0, 0xd0, 0xd0))
-            .x_label_formatter(&|x| tick_label(*x, x_log, x1 - x0))
+            .x_label_formatter(&|x| tick_label(*x, x_log, (x0, x1)))
             .y_label_formatter(&|y| match self.y_categories.is_empty() {
-                true => tick_label(*y, y_log, y1 - y0),
+                true => tick_label(*y, y_log, (y0, y1)),
                 false => category(&self.y_categories, *y),
             })
             .draw()
@@ -249,9 +253,22 @@ impl Figure {
                 4,
                 grey.stroke_width(1),
             ))?;
+            // Beside the line, not on it: to its right, or to its left in the last third.
             let y_text = y1 - (y1 - y0) * (0.04 + 0.06 * k as f64);
-            let font = TextStyle::from((FONT, 13).into_font()).color(&grey);
-            chart.draw_series(std::iter::once(Text::new(mark.label.clone(), (x, y_text), font)))?;
+            let right_side = x < x0 + 0.68 * (x1 - x0);
+            let gap = 0.008 * (x1 - x0);
+            let (x_text, anchor) = match right_side {
+                true => (x + gap, HPos::Left),
+                false => (x - gap, HPos::Right),
+            };
+            let font = TextStyle::from((FONT, 13).into_font())
+                .color(&grey)
+                .pos(Pos::new(anchor, VPos::Center));
+            chart.draw_series(std::iter::once(Text::new(
+                mark.label.clone(),
+                (x_text, y_text),
+                font,
+            )))?;
         }
         Ok(())
     }
@@ -360,21 +377,37 @@ fn category(names: &[String], v: f64) -> String {
     names.get(k as usize).cloned().unwrap_or_default()
 }
 
-/// A tick label; on a linear axis, rounding noise at zero (−2.2e-16) reads as 0.
-fn tick_label(v: f64, log: bool, span: f64) -> String {
-    if !log {
-        let v = if v.abs() < 1e-9 * span.abs() { 0.0 } else { v };
-        return crate::format::trim_number(v);
+/// A tick label in the one format of its axis (`lo`..`hi`): on a log axis every decade as a
+/// plain number when all of them fit between 0.001 and 10000, else every one as 1e<k>; on a
+/// linear axis plain numbers unless the axis reaches 1e5 or stays below 1e-3, then every tick
+/// in the same scientific form. Rounding noise at zero (−2.2e-16) reads as 0.
+fn tick_label(v: f64, log: bool, (lo, hi): (f64, f64)) -> String {
+    if log {
+        if (v - v.round()).abs() > 1e-6 {
+            return String::new();
+        }
+        let decade = v.round() as i32;
+        let plain = lo.floor() >= -3.0 && hi.ceil() <= 4.0;
+        return if plain {
+            crate::format::trim_number(10f64.powi(decade))
+        } else {
+            format!("1e{decade}")
+        };
     }
-    if (v - v.round()).abs() > 1e-6 {
-        return String::new();
+    let span = hi - lo;
+    let v = if v.abs() < 1e-9 * span.abs() { 0.0 } else { v };
+    let largest = lo.abs().max(hi.abs());
+    if largest >= 1e5 || (largest < 1e-3 && largest > 0.0) {
+        if v == 0.0 {
+            return "0".into();
+        }
+        // As many mantissa digits as the tick spacing needs, the same for every tick.
+        let exponent = largest.log10().floor();
+        let digits = ((exponent - (span / 10.0).abs().log10().floor()).max(0.0) as usize).min(6);
+        let mantissa = v / 10f64.powf(exponent);
+        return format!("{mantissa:.digits$}e{exponent}");
     }
-    let decade = v.round() as i32;
-    if (-3..=4).contains(&decade) {
-        crate::format::trim_number(10f64.powi(decade))
-    } else {
-        format!("1e{decade}")
-    }
+    crate::format::trim_number(v)
 }
 
 fn encode_png(rgb: &[u8], (width, height): (u32, u32)) -> Result<Vec<u8>, String> {
@@ -392,6 +425,32 @@ fn encode_png(rgb: &[u8], (width, height): (u32, u32)) -> Result<Vec<u8>, String
 #[cfg(test)]
 mod tests {
     use super::*;
+
+    #[test]
+    fn neighbouring_colours_differ_in_lightness() {
+        // Relative luminance (ITU-R BT.709 weights on the 8-bit values, a common shortcut):
+        // consecutive series at least 30 apart, so greyscale keeps them apart.
+        let luminance = |(r, g, b): (u8, u8, u8)| 0.2126 * r as f64 + 0.7152 * g as f64 + 0.0722 * b as f64;
+        for k in 0..PALETTE.len() {
+            let (a, b) = (PALETTE[k], PALETTE[(k + 1) % PALETTE.len()]);
+            assert!((luminance(a) - luminance(b)).abs() >= 30.0, "{k}: {a:?} {b:?}");
+        }
+    }
+
+    #[test]
+    fn an_axis_keeps_one_tick_format() {
+        let log: Vec<String> = (3..=6).map(|d| tick_label(d as f64, true, (3.0, 6.0))).collect();
+        assert_eq!(log, ["1e3", "1e4", "1e5", "1e6"]);
+        let small: Vec<String> = (-1..=2)
+            .map(|d| tick_label(d as f64, true, (-1.0, 2.0)))
+            .collect();
+        assert_eq!(small, ["0.1", "1", "10", "100"]);
+        let linear: Vec<String> = [0.0, 50_000.0, 100_000.0, 150_000.0]
+            .iter()
+            .map(|&v| tick_label(v, false, (0.0, 150_000.0)))
+            .collect();
+        assert_eq!(linear, ["0", "0.5e5", "1.0e5", "1.5e5"]);
+    }
 
     #[test]
     fn the_first_twelve_styles_are_all_different() {

@@ -49,13 +49,7 @@ impl RunResult {
         if unit == crate::units::TimeUnit::S {
             crate::format::format_duration(seconds)
         } else {
-            let value = crate::format::significant(seconds / unit.seconds());
-            let value = if value.contains('.') && !value.contains('e') {
-                value.trim_end_matches('0').trim_end_matches('.').to_string()
-            } else {
-                value
-            };
-            format!("{value} {}", unit.symbol())
+            terminal_time(seconds, unit)
         }
     }
 }
@@ -382,5 +376,18 @@ pub use crate::format::{format_duration, significant, trim_percent, with_digits}
 
 /// A time in the chosen output unit, four significant figures.
 pub fn terminal_time(seconds: f64, unit: crate::units::TimeUnit) -> String {
-    format!("{} {}", significant(seconds / unit.seconds()), unit.symbol())
+    format!(
+        "{} {}",
+        trimmed(significant(seconds / unit.seconds())),
+        unit.symbol()
+    )
+}
+
+/// A fixed-notation number without trailing zeros ("4.000" reads "4", "2.50" reads "2.5").
+fn trimmed(text: String) -> String {
+    if text.contains('.') && !text.contains('e') {
+        text.trim_end_matches('0').trim_end_matches('.').to_string()
+    } else {
+        text
+    }
 }
