@@ -7,7 +7,7 @@ use kinequil::Network;
 use kinequil::{run, RunSettings};
 
 #[test]
-fn readme_network_example_parses() {
+fn readme_network_example_parses_and_runs_clean() {
     let readme = std::fs::read_to_string(Path::new(env!("CARGO_MANIFEST_DIR")).join("README.md")).unwrap();
     let start = readme.find("```toml\n").expect("README has a TOML example") + "```toml\n".len();
     let end = start + readme[start..].find("```").unwrap();
@@ -18,6 +18,12 @@ fn readme_network_example_parses() {
         (network.reactions[0].kr - 2.4e-4 / 4.2).abs() < 1e-18,
         "kr = kf / K"
     );
+    // A reader copies this example first: it must reach a solved equilibrium that the
+    // integration agrees with, and its constants must pass the audit.
+    let result = kinequil::run(&network, &kinequil::RunSettings::default()).unwrap();
+    assert!(result.solved.is_ok(), "{:?}", result.solved);
+    assert!(result.disagreement.is_some() && !result.disagrees, "routes agree");
+    assert!(result.audit.brief().is_empty(), "{:?}", result.audit.brief());
 }
 
 #[test]
