@@ -100,7 +100,7 @@ pub use study::{
 pub use sweep::{at_point, grid, Axis, Varied};
 pub use uncertainty::Sampler;
 pub use units::parse_quantity;
-pub use verdict::{limiting_reagent, Conversion, HoldVerdict, Peak, Yield};
+pub use verdict::{limiting_reagent, Conversion, HoldVerdict, NetFlux, Peak, Yield};
 
 /// The cautions every report carries.
 pub const CAUTIONS: [&str; 4] = [

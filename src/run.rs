@@ -11,7 +11,7 @@ use crate::network::Network;
 use crate::relaxation::{self, Mode};
 use crate::stoich::Stoichiometry;
 use crate::units::{ConcentrationUnit, TimeUnit};
-use crate::verdict::{self, Conversion, HoldVerdict, Peak};
+use crate::verdict::{self, Conversion, HoldVerdict, NetFlux, Peak};
 
 /// What the user asked for.
 #[derive(Debug, Clone)]
@@ -110,6 +110,8 @@ pub struct RunResult {
     pub conversion: Option<Conversion>,
     /// Species passing through a maximum above both their start and their end.
     pub peaks: Vec<Peak>,
+    /// Net step rates at a steady state that is not an equilibrium (empty otherwise).
+    pub net_fluxes: Vec<NetFlux>,
 }
 
 impl RunResult {
@@ -206,6 +208,10 @@ pub fn run(network: &Network, settings: &RunSettings) -> Result<RunResult, Error
     let conversion = verdict::conversion(network, &final_state, reference);
     let end = reference.unwrap_or(trajectory.last_state());
     let peaks = verdict::peaks(trajectory, end, &atol, settings.rtol, &names);
+    let net_fluxes = match (&solved, &equilibrium) {
+        (Err(_), Some(steady)) => verdict::net_fluxes(network, steady),
+        _ => Vec::new(),
+    };
     let settings = with_output_times(settings, final_time);
     Ok(RunResult {
         network: network.clone(),
@@ -227,6 +233,7 @@ pub fn run(network: &Network, settings: &RunSettings) -> Result<RunResult, Error
         verdict,
         conversion,
         peaks,
+        net_fluxes,
     })
 }
 

@@ -165,3 +165,36 @@ fn refine_maximum(trajectory: &Trajectory, i: usize, k: usize, at_k: f64) -> (f6
     }
     best
 }
+
+/// A step's net rate at the end of a run that settled into a steady state rather than an
+/// equilibrium (a cycle whose constants break detailed balance keeps a flux turning).
+#[derive(Debug, Clone, PartialEq, Serialize)]
+pub struct NetFlux {
+    pub step: usize,
+    pub scheme: String,
+    /// Forward minus reverse rate, mol/(L s).
+    pub net_rate: f64,
+}
+
+/// The reversible steps still running net at the steady state `state`, largest first: those
+/// whose net rate exceeds 1e-6 of their forward rate (below that it is the integration's noise,
+/// common practice). Empty at an equilibrium.
+pub fn net_fluxes(network: &Network, state: &[f64]) -> Vec<NetFlux> {
+    let mut fluxes: Vec<NetFlux> = network
+        .reactions
+        .iter()
+        .enumerate()
+        .filter(|(_, r)| r.reversible)
+        .filter_map(|(j, r)| {
+            let (forward, reverse) = r.rates(state);
+            let net = forward - reverse;
+            (net.abs() > 1e-6 * forward.max(reverse)).then(|| NetFlux {
+                step: j + 1,
+                scheme: r.equation.clone(),
+                net_rate: net,
+            })
+        })
+        .collect();
+    fluxes.sort_by(|a, b| b.net_rate.abs().total_cmp(&a.net_rate.abs()));
+    fluxes
+}

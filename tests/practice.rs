@@ -276,3 +276,60 @@ fn charts_mark_the_hold_time_and_keep_the_limiting_step() {
         "the hold time is marked"
     );
 }
+
+#[test]
+fn the_corrected_file_keeps_units_comments_and_layout() {
+    // A cycle of our own (tests/data/cycle_with_units.toml) whose constants break detailed
+    // balance: K1·K2 = 2·3 = 6 against K3 = 10.
+    let dir = tempfile::tempdir().unwrap();
+    let case = concat!(env!("CARGO_MANIFEST_DIR"), "/tests/data/cycle_with_units.toml");
+    let fixed = dir.path().join("fixed.toml");
+    let out = kinequil(&["check", case, "--write-corrected", fixed.to_str().unwrap()]);
+    assert_eq!(out.status.code(), Some(1), "inconsistent constants exit 1");
+    let text = std::fs::read_to_string(&fixed).unwrap();
+    for kept in [
+        "temperature = \"25 degC\"",
+        "A = \"1 mol/L\"   # start",
+        "kf = \"2.0 1/s\"     # measured",
+        "kf = { A = \"1e6 1/s\", Ea = \"40 kJ/mol\" }   # Arrhenius fit",
+        "at = \"25 degC\", dH = \"-5 kJ/mol\" }   # from the literature; kinequil check: K ×",
+    ] {
+        assert!(text.contains(kept), "lost `{kept}`:\n{text}");
+    }
+    assert!(
+        text.contains(" 1/s\"  # kinequil check: kr ×"),
+        "kr keeps its unit:\n{text}"
+    );
+    let again = kinequil(&["check", case, "--write-corrected", fixed.to_str().unwrap()]);
+    assert_eq!(again.status.code(), Some(2));
+    assert!(String::from_utf8_lossy(&again.stderr).contains("exists; give another file name or pass --force"));
+    let recheck = kinequil(&["check", fixed.to_str().unwrap()]);
+    assert_eq!(
+        recheck.status.code(),
+        Some(0),
+        "the corrected file passes the audit"
+    );
+}
+
+#[test]
+fn a_cycle_without_detailed_balance_reports_its_steady_flux() {
+    // A <=> B (1, 1), B <=> C (1, 1), C <=> A (1, 2): K1·K2·K3 = 1/2, so no equilibrium. The
+    // steady state of these linear rate equations (solved by hand from dA/dt = dB/dt = 0 and
+    // A + B + C = 1) is A = 1/4, B = 1/3, C = 5/12, and every step carries the same net rate,
+    // the cycle flux −1/12 mol/(L s). Within 1e-6 relative (integration to rtol 1e-8).
+    let text = "[species]\nA = 1.0\nB = 0.0\nC = 0.0\n\n[[reaction]]\nscheme = \"A <=> B\"\nkf = 1.0\nkr = 1.0\n\n[[reaction]]\nscheme = \"B <=> C\"\nkf = 1.0\nkr = 1.0\n\n[[reaction]]\nscheme = \"C <=> A\"\nkf = 1.0\nkr = 2.0\n";
+    let result = crate::util::run_with(text, 1e-8, 1e-14, None);
+    assert!(result.solved.is_err(), "no equilibrium exists");
+    assert_eq!(result.net_fluxes.len(), 3, "{:?}", result.net_fluxes);
+    for flux in &result.net_fluxes {
+        assert!((flux.net_rate + 1.0 / 12.0).abs() < 1e-6 / 12.0, "{flux:?}");
+    }
+    let lines = kinequil::Summary::from_result(&result);
+    assert_eq!(
+        serde_json::to_value(&lines).unwrap()["net_fluxes"]
+            .as_array()
+            .unwrap()
+            .len(),
+        3
+    );
+}

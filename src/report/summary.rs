@@ -1,6 +1,6 @@
 //! The JSON summary (`summary.json`): stable keys that scripts can rely on.
 
-use crate::verdict::{Conversion, HoldVerdict, Peak};
+use crate::verdict::{Conversion, HoldVerdict, NetFlux, Peak};
 use serde::Serialize;
 use serde_json::Map;
 
@@ -68,6 +68,8 @@ pub struct Summary {
     pub conversion: Option<Conversion>,
     /// Species passing through a maximum above both their start and their end (mol/L, s).
     pub maxima: Vec<Peak>,
+    /// Net step rates at a steady state that is not an equilibrium (a cycle flux), mol/(L s).
+    pub net_fluxes: Vec<NetFlux>,
     /// Partial pressures of the gases at `final_time`, bar (closed rigid vessel), when there are gases.
     pub final_partial_pressures_bar: Option<Map<String, serde_json::Value>>,
     pub final_total_pressure_bar: Option<f64>,
@@ -275,6 +277,18 @@ pub fn verdict_lines(result: &RunResult) -> Vec<String> {
             result.time_text(p.time)
         ));
     }
+    if !result.net_fluxes.is_empty() {
+        let parts: Vec<String> = result
+            .net_fluxes
+            .iter()
+            .take(5)
+            .map(|f| format!("step {} ({}) {:+.3e}", f.step, f.scheme, f.net_rate))
+            .collect();
+        lines.push(format!(
+            "steady state, not an equilibrium: net rates still running, mol/(L s): {}",
+            parts.join(", ")
+        ));
+    }
     lines
 }
 
@@ -465,6 +479,7 @@ impl Summary {
                 .map(|list| list.iter().map(|&i| names[i].clone()).collect()),
             conversion: result.conversion.clone(),
             maxima: result.peaks.clone(),
+            net_fluxes: result.net_fluxes.clone(),
             final_partial_pressures_bar: result.pressures_bar(&result.final_state).map(|(partial, _)| {
                 partial
                     .into_iter()
