@@ -333,3 +333,43 @@ fn a_cycle_without_detailed_balance_reports_its_steady_flux() {
         3
     );
 }
+
+#[test]
+fn a_gas_run_charts_its_pressures() {
+    // The bundled N2O4 <=> 2 NO2 case starts at 1 bar of N2O4 at 320 K; at equilibrium the total
+    // is 1 bar times (1 + conversion), the conversion being that of the solved equilibrium
+    // (stoichiometry: each N2O4 dissociated adds one mole of gas).
+    let dir = tempfile::tempdir().unwrap();
+    let case = concat!(env!("CARGO_MANIFEST_DIR"), "/cases/gas_dissociation.toml");
+    let out_dir = dir.path().join("o");
+    let out = kinequil(&["run", case, "--out", out_dir.to_str().unwrap()]);
+    assert_eq!(out.status.code(), Some(0));
+    let svg = std::fs::read_to_string(out_dir.join("pressures.svg")).unwrap();
+    assert!(
+        svg.contains("pressure [bar]") && svg.contains("total"),
+        "a pressure chart"
+    );
+    let summary: serde_json::Value =
+        serde_json::from_str(&std::fs::read_to_string(out_dir.join("summary.json")).unwrap()).unwrap();
+    let conversion = summary["conversion"]["at_equilibrium"].as_f64().unwrap();
+    let (p0, p1) = (
+        summary["initial_total_pressure_bar"].as_f64().unwrap(),
+        summary["final_total_pressure_bar"].as_f64().unwrap(),
+    );
+    // Both from the same solve: agreement to the integration's tolerance (1e-5 relative).
+    assert!(
+        (p1 - p0 * (1.0 + conversion)).abs() < 1e-5 * p1,
+        "{p0} {p1} {conversion}"
+    );
+    let liquid = dir.path().join("l");
+    kinequil(&[
+        "run",
+        concat!(env!("CARGO_MANIFEST_DIR"), "/cases/demo.toml"),
+        "--out",
+        liquid.to_str().unwrap(),
+    ]);
+    assert!(
+        !liquid.join("pressures.svg").exists(),
+        "no pressure chart without gases"
+    );
+}

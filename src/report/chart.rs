@@ -46,7 +46,73 @@ pub fn figures(result: &RunResult, options: &ChartOptions) -> Vec<(&'static str,
     if let Some(figure) = quotients(result, &frame, &step_rates) {
         out.push(("quotients", figure));
     }
+    if let Some(figure) = pressures(result, &frame) {
+        out.push(("pressures", figure));
+    }
     out
+}
+
+/// The bottom of a concentration axis: 0, unless a curve goes clearly below it (more than 0.1 %
+/// of the top, beyond the solver's rounding), which then shows instead of running along the axis.
+fn y_floor(series: &[Series], y_max: f64) -> f64 {
+    let lowest = series
+        .iter()
+        .flat_map(|s| s.points.iter().map(|p| p.1))
+        .fold(0.0_f64, f64::min);
+    if lowest < -1e-3 * y_max {
+        1.05 * lowest
+    } else {
+        0.0
+    }
+}
+
+/// Partial pressures (name, bar) and their total.
+type Pressures = (Vec<(String, f64)>, f64);
+
+/// Total and partial pressures of the gases (closed rigid vessel, p = cRT), for gas runs: the
+/// gauge an operator watches.
+fn pressures(result: &RunResult, frame: &Frame) -> Option<Figure> {
+    let trajectory = &result.solution.trajectory;
+    let at = |t: f64| result.pressures_bar(&trajectory.state_at(t));
+    let (names, _) = at(0.0)?;
+    let times: Vec<f64> = frame.plotted_times().collect();
+    let samples: Vec<(f64, Pressures)> = times.iter().filter_map(|&t| Some((t, at(t)?))).collect();
+    let mut series: Vec<Series> = vec![Series {
+        name: "total".into(),
+        points: samples
+            .iter()
+            .map(|(t, (_, total))| (frame.x(*t), *total))
+            .collect(),
+        style: 5,
+        pattern: None,
+    }];
+    series.extend(names.iter().enumerate().map(|(k, (name, _))| {
+        Series {
+            name: name.clone(),
+            points: samples
+                .iter()
+                .map(|(t, (partial, _))| (frame.x(*t), partial[k].1))
+                .collect(),
+            style: if k >= 5 { k + 1 } else { k },
+            pattern: None,
+        }
+    }));
+    let y_max = series
+        .iter()
+        .flat_map(|s| s.points.iter().map(|p| p.1))
+        .fold(0.0_f64, f64::max);
+    Some(Figure {
+        title: "Pressure (closed rigid vessel)".into(),
+        x_label: frame.x_label(),
+        y_label: "pressure [bar]".into(),
+        x_log: frame.log_time,
+        y_log: false,
+        x_range: (frame.x(frame.x_start), frame.x(frame.x_end)),
+        y_range: (0.0, if y_max > 0.0 { 1.05 * y_max } else { 1.0 }),
+        series,
+        notes: vec!["ideal gas, p = cRT at the run temperature".into()],
+        ..Figure::default()
+    })
 }
 
 /// The time axis and species selection shared by the charts.
@@ -125,6 +191,16 @@ impl Frame {
             .iter()
             .copied()
             .filter(move |&t| (!self.log_time || t >= self.x_start) && t <= self.x_end)
+    }
+
+    /// On a logarithmic time axis t = 0 cannot be drawn: say where the curves start.
+    fn log_start_note(&self) -> Option<String> {
+        self.log_time.then(|| {
+            format!(
+                "log time: curves start at {}; the values at t = 0 are in the tables",
+                terminal_time(self.x_start, self.time_unit)
+            )
+        })
     }
 
     fn left_out_note(&self) -> Option<String> {
@@ -243,6 +319,7 @@ fn concentrations(result: &RunResult, frame: &Frame) -> Figure {
             ));
         }
     }
+    notes.extend(frame.log_start_note());
     notes.extend(frame.left_out_note());
     let y_max = series
         .iter()
@@ -256,7 +333,10 @@ fn concentrations(result: &RunResult, frame: &Frame) -> Figure {
         x_log: frame.log_time,
         y_log: false,
         x_range: (frame.x(frame.x_start), frame.x(frame.x_end)),
-        y_range: (0.0, if y_max > 0.0 { 1.05 * y_max } else { 1.0 }),
+        y_range: (
+            y_floor(&series, y_max),
+            if y_max > 0.0 { 1.05 * y_max } else { 1.0 },
+        ),
         series,
         levels,
         bands,

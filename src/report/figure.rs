@@ -161,7 +161,7 @@ impl Figure {
         let mut svg = String::new();
         self.draw(&SVGBackend::with_string(&mut svg, SIZE).into_drawing_area())?;
         let mut pixels = vec![0u8; (SIZE.0 * SIZE.1 * 3) as usize];
-        self.draw(&BitMapBackend::with_buffer(&mut pixels, SIZE).into_drawing_area())?;
+        self.draw(&super::raster::PngCanvas::new(&mut pixels, SIZE).into_drawing_area())?;
         Ok((svg, encode_png(&pixels, SIZE)?))
     }
 
@@ -231,7 +231,8 @@ impl Figure {
             let (colour, _, _) = style(band.style);
             let rect = Rectangle::new(
                 [(x0, self.ty(band.low)), (x1, self.ty(band.high))],
-                colour.mix(0.12).filled(),
+                // Light enough that where bands overlap the colours still read apart.
+                colour.mix(0.07).filled(),
             );
             chart.draw_series(std::iter::once(rect))?;
         }

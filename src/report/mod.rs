@@ -8,6 +8,7 @@ pub mod chart;
 pub mod equilibrium_table;
 pub mod figure;
 pub mod html;
+mod raster;
 pub mod sensitivity;
 pub mod study;
 pub mod summary;
@@ -24,7 +25,7 @@ pub use crate::CAUTIONS;
 
 /// Names of every file a run may write (the approach and Q/K charts and the table at the
 /// user's times are written only when they apply).
-pub const RUN_FILES: [&str; 14] = [
+pub const RUN_FILES: [&str; 16] = [
     "summary.json",
     "trajectory.csv",
     "rates.csv",
@@ -38,6 +39,8 @@ pub const RUN_FILES: [&str; 14] = [
     "rates.png",
     "quotients.svg",
     "quotients.png",
+    "pressures.svg",
+    "pressures.png",
     "report.html",
 ];
 
