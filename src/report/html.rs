@@ -5,7 +5,9 @@ use std::fmt::Write;
 
 use crate::run::RunResult;
 
-use super::summary::{nonlinear_approach_note, relaxation_estimates, stop_description, verdict_lines};
+use super::summary::{
+    end_word, judged_on, nonlinear_approach_note, relaxation_estimates, stop_description, verdict_lines,
+};
 use super::CAUTIONS;
 use crate::format::{count, number};
 
@@ -150,8 +152,9 @@ fn composition(h: &mut String, result: &RunResult) {
     );
     let _ = writeln!(
         h,
-        "<table><tr><th class=\"text\">species</th><th>initial [{u}]</th><th>at {} [{u}]</th><th>equilibrium, solved [{u}]</th><th>equilibrium, integrated [{u}]</th></tr>",
+        "<table><tr><th class=\"text\">species</th><th>initial [{u}]</th><th>at {} [{u}]</th><th>equilibrium, solved [{u}]</th><th>{end}, integrated [{u}]</th></tr>",
         escape(&result.time_text(result.final_time)),
+        end = end_word(result),
         u = escape(result.settings.units.concentration.symbol())
     );
     let scale = result.settings.units.concentration.mol_per_l();
@@ -211,8 +214,9 @@ fn composition(h: &mut String, result: &RunResult) {
 /// Times to equilibrium, with the linear estimate and the hold-time table.
 fn time_to_equilibrium(h: &mut String, result: &RunResult) {
     let names = result.species_names();
-    let _ = writeln!(h, "<h2>Time to equilibrium</h2>");
-    let _ = writeln!(h, "<p>The earliest time after which every species stays within the given fraction of its total change from its equilibrium value.</p>");
+    let end = end_word(result);
+    let _ = writeln!(h, "<h2>Time to {end}</h2>");
+    let _ = writeln!(h, "<p>The earliest time after which every species{} stays within the given fraction of its total change from its {end} value.</p>", escape(&judged_on(result)));
     let estimates = relaxation_estimates(result);
     let _ = writeln!(h, "<table><tr><th>tolerance</th><th>time [s]</th><th class=\"text\">readable</th><th class=\"text\">last to settle</th><th>&tau;<sub>slowest</sub>&middot;ln(1/tol) [s]</th></tr>");
     for s in &result.settling {
