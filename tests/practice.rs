@@ -373,3 +373,58 @@ fn a_gas_run_charts_its_pressures() {
         "no pressure chart without gases"
     );
 }
+
+#[test]
+fn a_sweep_judges_on_the_same_species_as_a_run() {
+    // One sweep point at the demo's own temperature with `--settle-on conversion` must give the
+    // run's time to 1 % judged on the limiting reagent, to the digit (both are the same run).
+    let dir = tempfile::tempdir().unwrap();
+    let case = concat!(env!("CARGO_MANIFEST_DIR"), "/cases/demo.toml");
+    let sweep_dir = dir.path().join("s");
+    let out = kinequil(&[
+        "sweep",
+        case,
+        "--vary",
+        "temperature=60degC..60degC:1",
+        "--settle-on",
+        "conversion",
+        "--threads",
+        "1",
+        "--out",
+        sweep_dir.to_str().unwrap(),
+    ]);
+    assert_eq!(
+        out.status.code(),
+        Some(0),
+        "{}",
+        String::from_utf8_lossy(&out.stderr)
+    );
+    let table = std::fs::read_to_string(sweep_dir.join("sweep.csv")).unwrap();
+    let mut lines = table.lines();
+    let header: Vec<&str> = lines.next().unwrap().split(',').collect();
+    let row: Vec<&str> = lines.next().unwrap().split(',').collect();
+    let column = header.iter().position(|h| *h == "t_1pct_s").unwrap();
+    let swept: f64 = row[column].parse().unwrap();
+    let run_dir = dir.path().join("r");
+    let out = kinequil(&[
+        "run",
+        case,
+        "--settle-on",
+        "conversion",
+        "--out",
+        run_dir.to_str().unwrap(),
+    ]);
+    assert_eq!(out.status.code(), Some(0));
+    let summary: serde_json::Value =
+        serde_json::from_str(&std::fs::read_to_string(run_dir.join("summary.json")).unwrap()).unwrap();
+    assert_eq!(summary["judged_species"], serde_json::json!(["acid"]));
+    let ran = summary["time_to_equilibrium"]
+        .as_array()
+        .unwrap()
+        .iter()
+        .find(|s| s["tolerance"] == 0.01)
+        .unwrap()["seconds"]
+        .as_f64()
+        .unwrap();
+    assert!((swept - ran).abs() <= 1e-9 * ran, "{swept} vs {ran}");
+}

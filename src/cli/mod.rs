@@ -290,21 +290,7 @@ fn positive_fraction(option: &str, x: f64) -> Result<f64, Error> {
 fn run_command(args: RunArgs) -> Result<String, Error> {
     let mut settings = run_settings(&args)?;
     let network = Network::from_file_at(&args.case, temperature(&args.temperature)?)?;
-    settings.settle_on = match args.settle_on.as_deref() {
-        None => None,
-        Some("conversion") => match kinequil_limiting(&network) {
-            Some(i) => Some(vec![i]),
-            None => {
-                return Err(Error::Option {
-                    option: "--settle-on".into(),
-                    message:
-                        "the first reaction has no reactant present at the start, so no limiting reagent"
-                            .into(),
-                })
-            }
-        },
-        Some(list) => Some(species_list(&network, list, "--settle-on")?),
-    };
+    settings.settle_on = settle_on(&network, args.settle_on.as_deref())?;
     let out = args
         .out
         .unwrap_or_else(|| PathBuf::from("output").join(network.case_name()));
@@ -385,9 +371,21 @@ fn run_settings(args: &RunArgs) -> Result<RunSettings, Error> {
     })
 }
 
-/// The main reaction's limiting reagent, by index.
-fn kinequil_limiting(network: &Network) -> Option<usize> {
-    crate::verdict::limiting_reagent(network).map(|(i, _)| i)
+/// The species a `--settle-on` value names: a list, or `conversion` for the first reaction's
+/// limiting reagent; None (every species) without the option.
+fn settle_on(network: &Network, text: Option<&str>) -> Result<Option<Vec<usize>>, Error> {
+    match text {
+        None => Ok(None),
+        Some("conversion") => match crate::verdict::limiting_reagent(network) {
+            Some((i, _)) => Ok(Some(vec![i])),
+            None => Err(Error::Option {
+                option: "--settle-on".into(),
+                message: "the first reaction has no reactant present at the start, so no limiting reagent"
+                    .into(),
+            }),
+        },
+        Some(list) => species_list(network, list, "--settle-on").map(Some),
+    }
 }
 
 fn equilibrium_command(args: EquilibriumArgs) -> Result<Outcome, Error> {

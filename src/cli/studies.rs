@@ -15,7 +15,7 @@ use crate::sweep::{self, Axis};
 use crate::uncertainty::Sampler;
 use crate::units::TimeUnit;
 
-use super::{duration, temperature, tolerance_list};
+use super::{duration, settle_on, temperature, tolerance_list};
 
 /// What every study command shares.
 #[derive(Debug, clap::Args)]
@@ -34,9 +34,13 @@ pub(super) struct Shared {
     /// Add a tolerance for time to equilibrium, as a fraction of the total change.
     #[arg(long, value_name = "FRACTION")]
     pub tol: Vec<f64>,
-    /// Temperature, overriding the file's (K, or with units such as "60 degC").
+    /// Temperature, overriding the file's ("60 degC" or "333.15 K").
     #[arg(long, value_name = "T")]
     pub temperature: Option<String>,
+    /// Judge time to equilibrium on these species only (comma-separated), or on `conversion`
+    /// (the limiting reagent of the first reaction).
+    #[arg(long, value_name = "A,B|conversion")]
+    pub settle_on: Option<String>,
     /// Replace results of an earlier study in the output folder.
     #[arg(long)]
     pub force: bool,
@@ -104,6 +108,7 @@ fn prepare(
 ) -> Result<Prepared, Error> {
     let network = Network::from_file_at(&shared.case, temperature(&shared.temperature)?)?;
     let tolerances = tolerance_list(&shared.tol)?;
+    let judged = settle_on(&network, shared.settle_on.as_deref())?;
     let total = total(&network)?;
     let shard = shared.shard.as_deref().map(parse_shard).transpose()?;
     let indices = match shard {
@@ -140,12 +145,22 @@ fn prepare(
         until: None,
         total,
         species: network.species.iter().map(|s| s.name.clone()).collect(),
-        notes: Vec::new(),
+        notes: judged
+            .iter()
+            .map(|list| {
+                let names: Vec<&str> = list.iter().map(|&i| network.species[i].name.as_str()).collect();
+                format!(
+                    "time to equilibrium judged on {} only (--settle-on)",
+                    names.join(", ")
+                )
+            })
+            .collect(),
         shard,
     };
     Ok(Prepared {
         settings: RunSettings {
             tolerances,
+            settle_on: judged,
             ..RunSettings::default()
         },
         network,
