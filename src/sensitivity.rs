@@ -81,10 +81,11 @@ pub enum EquilibriumRoute {
 }
 
 /// Every constant's sensitivities, ranked so the constant that dominates the hold time comes
-/// first; probes run on `threads` threads.
+/// first; probes run on `threads` threads, times judged on the `judged` species (all if None).
 pub fn sensitivities(
     network: &Network,
     tolerances: &[f64],
+    judged: Option<Vec<usize>>,
     threads: usize,
 ) -> Result<(Vec<Sensitivity>, EquilibriumRoute), String> {
     let list = constants(network);
@@ -92,6 +93,7 @@ pub fn sensitivities(
         tolerances: tolerances.to_vec(),
         rtol: 1e-9,
         atol: 1e-15,
+        settle_on: judged,
         ..RunSettings::default()
     };
     // Probe 2m is constant m scaled by e^(+h), probe 2m + 1 by e^(−h).

@@ -304,11 +304,16 @@ pub(super) fn sensitivity_command(args: SensitivityArgs) -> Result<String, Error
     })?;
     let network = &prepared.network;
     let tolerances = &prepared.study.tolerances;
-    let (found, route) = crate::sensitivity::sensitivities(network, tolerances, prepared.threads)
+    let judged = prepared.settings.settle_on.clone();
+    let (found, route) = crate::sensitivity::sensitivities(network, tolerances, judged, prepared.threads)
         .map_err(|m| option("(network)", &format!("no sensitivities: {m}")))?;
     let files = report::sensitivity::render_sensitivity(network, tolerances, &found, route)?;
     let written = report::write_all(&prepared.out, &report::as_contents(files), args.shared.force)?;
-    Ok(report::sensitivity::terminal_text(
-        network, tolerances, &found, &written,
-    ))
+    let notes: String = prepared
+        .study
+        .notes
+        .iter()
+        .map(|n| format!("note: {n}\n"))
+        .collect();
+    Ok(notes + &report::sensitivity::terminal_text(network, tolerances, &found, &written))
 }
