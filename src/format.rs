@@ -26,8 +26,22 @@ pub fn percent(fraction: f64) -> String {
 
 /// A fraction as a percentage without trailing zeros: 0.001 → "0.1".
 pub fn trim_percent(fraction: f64) -> String {
-    let s = format!("{:.4}", fraction * 100.0);
-    s.trim_end_matches('0').trim_end_matches('.').to_string()
+    trim_zeros(format!("{:.4}", fraction * 100.0))
+}
+
+/// A fraction as a percentage with one decimal and no space: 0.3775 → "37.7%".
+pub fn percent_one_decimal(fraction: f64) -> String {
+    format!("{:.1}%", 100.0 * fraction)
+}
+
+/// A fixed-notation number without trailing zeros ("4.000" reads "4", "2.50" reads "2.5");
+/// scientific and whole numbers are left as they are.
+pub fn trim_zeros(text: String) -> String {
+    if text.contains('.') && !text.contains('e') {
+        text.trim_end_matches('0').trim_end_matches('.').to_string()
+    } else {
+        text
+    }
 }
 
 pub fn format_duration(seconds: f64) -> String {
@@ -80,8 +94,7 @@ pub fn trim_number(x: f64) -> String {
     if x.abs() >= 1e5 || x.abs() < 1e-3 {
         format!("{x:.2e}")
     } else {
-        let s = format!("{x:.4}");
-        s.trim_end_matches('0').trim_end_matches('.').to_string()
+        trim_zeros(format!("{x:.4}"))
     }
 }
 

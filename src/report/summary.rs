@@ -1,5 +1,6 @@
 //! The JSON summary (`summary.json`): stable keys that scripts can rely on.
 
+use crate::format::percent_one_decimal;
 use crate::verdict::{Conversion, HoldVerdict, NetFlux, Peak};
 use serde::Serialize;
 use serde_json::Map;
@@ -207,7 +208,7 @@ pub fn verdict_lines(result: &RunResult) -> Vec<String> {
             "verdict at the hold time {}: every species{} within {} of its total change (furthest: {})",
             result.time_text(v.time),
             judged_on(result),
-            percent_text(v.remaining.max(0.0)),
+            percent_one_decimal(v.remaining.max(0.0)),
             v.furthest
         ));
         let reached: Vec<String> = result
@@ -232,23 +233,23 @@ pub fn verdict_lines(result: &RunResult) -> Vec<String> {
         }
     }
     if let Some(c) = &result.conversion {
-        let at_eq = c
-            .at_equilibrium
-            .map_or(String::new(), |x| format!(", {} at {settled}", percent_text(x)));
+        let at_eq = c.at_equilibrium.map_or(String::new(), |x| {
+            format!(", {} at {settled}", percent_one_decimal(x))
+        });
         lines.push(format!(
             "conversion of {} (limiting reagent of the first reaction): {} at {}{at_eq}",
             c.reagent,
-            percent_text(c.at_final),
+            percent_one_decimal(c.at_final),
             result.time_text(result.final_time)
         ));
         let yields: Vec<String> = c
             .yields
             .iter()
             .map(|y| {
-                let eq = y
-                    .at_equilibrium
-                    .map_or(String::new(), |x| format!(" ({} at {settled})", percent_text(x)));
-                format!("{} {}{eq}", y.product, percent_text(y.at_final))
+                let eq = y.at_equilibrium.map_or(String::new(), |x| {
+                    format!(" ({} at {settled})", percent_one_decimal(x))
+                });
+                format!("{} {}{eq}", y.product, percent_one_decimal(y.at_final))
             })
             .collect();
         if !yields.is_empty() {
@@ -261,7 +262,7 @@ pub fn verdict_lines(result: &RunResult) -> Vec<String> {
         let after = if p.end_value > 0.01 * p.value {
             format!(
                 "{} above where it ends, {} {symbol}",
-                percent_text(p.value / p.end_value - 1.0),
+                percent_one_decimal(p.value / p.end_value - 1.0),
                 crate::format::with_digits(p.end_value / scale, 5)
             )
         } else {
@@ -306,10 +307,6 @@ pub fn judged_on(result: &RunResult) -> String {
     }
 }
 
-/// A fraction as a percentage with one decimal.
-fn percent_text(x: f64) -> String {
-    format!("{:.1}%", 100.0 * x)
-}
 /// "equilibrium", or "steady state" for a network whose end is not an equilibrium (one-way
 /// steps, feeds, constants that break detailed balance).
 pub fn end_word(result: &RunResult) -> &'static str {
