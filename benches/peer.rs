@@ -111,15 +111,26 @@ fn main() {
             to_equilibrium: false,
             ..Options::new(network.n_species())
         };
-        let started = Instant::now();
-        let solution = integrate(
-            &model,
-            &stoich.local_conservation,
-            &network.initial_state(),
-            &options,
-        )
-        .unwrap();
-        let seconds = started.elapsed().as_secs_f64();
+        // The peers' timing rule: at least 5 solves, more (up to 50) until they add up to
+        // 2 s, and the median.
+        let mut times = Vec::new();
+        let solution = loop {
+            let started = Instant::now();
+            let solution = integrate(
+                &model,
+                &stoich.local_conservation,
+                &network.initial_state(),
+                &options,
+            )
+            .unwrap();
+            times.push(started.elapsed().as_secs_f64());
+            let total: f64 = times.iter().sum();
+            if times.len() >= 50 || (times.len() >= 5 && total >= 2.0) || (total > 30.0) {
+                break solution;
+            }
+        };
+        times.sort_by(f64::total_cmp);
+        let seconds = times[times.len() / 2];
         let reference = dir.join(format!("{name}.ref.json"));
         let err = std::fs::read_to_string(&reference)
             .ok()

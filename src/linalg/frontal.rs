@@ -197,6 +197,12 @@ impl FrontalLu {
         })
     }
 
+    /// The widest supernode: whether a test reaches the blocked factorisation of the pivot block.
+    #[cfg(test)]
+    pub fn widest(&self) -> usize {
+        self.supernodes.iter().map(Supernode::width).max().unwrap_or(0)
+    }
+
     /// Factors the matrix with `values` on `pattern` (the pattern this was built from).
     pub fn factor(&mut self, values: &[f64]) -> Result<(), UnstablePivot> {
         self.factored = false;
@@ -213,23 +219,27 @@ impl FrontalLu {
                 let child = &self.supernodes[c];
                 let r = child.below.len();
                 let update = &self.stack[self.stack.len() - r * r..];
-                for (j, &to_col) in child.in_parent.iter().enumerate() {
-                    for (i, &to_row) in child.in_parent.iter().enumerate() {
-                        front[to_row + to_col * size] += update[i + j * r];
+                for (&to_col, column) in child.in_parent.iter().zip(update.chunks_exact(r)) {
+                    let target = &mut front[to_col * size..(to_col + 1) * size];
+                    for (&to_row, &u) in child.in_parent.iter().zip(column) {
+                        target[to_row] += u;
                     }
                 }
                 self.stack.truncate(self.stack.len() - r * r);
             }
-            factor_front(front, size, width)?;
+            factor_front(front, size, size, width)?;
             let lower = &mut self.lower[node.lower_at..node.lower_at + size * width];
             lower.copy_from_slice(&front[..size * width]);
             let r = size - width;
+            // U's off-diagonal block by rows (each pivot row's r entries together), the layout
+            // the backward solve reads as dot products.
             let upper = &mut self.upper[node.upper_at..node.upper_at + width * r];
             for j in 0..r {
-                let column = (width + j) * size;
-                upper[j * width..(j + 1) * width].copy_from_slice(&front[column..column + width]);
-                self.stack
-                    .extend_from_slice(&front[column + width..column + size]);
+                let column = &front[(width + j) * size..(width + j + 1) * size];
+                for (i, &u) in column[..width].iter().enumerate() {
+                    upper[i * r + j] = u;
+                }
+                self.stack.extend_from_slice(&column[width..]);
             }
         }
         self.factored = true;
@@ -248,20 +258,20 @@ impl FrontalLu {
         // Forward: supernodes in column order, each its unit lower block, then the rows below
         // summed densely and scattered once.
         for node in &self.supernodes {
-            let (size, width) = (node.size(), node.width());
+            let (size, width, r) = (node.size(), node.width(), node.below.len());
             let block = &self.lower[node.lower_at..node.lower_at + size * width];
-            let sum = &mut self.sum[..node.below.len()];
+            let sum = &mut self.sum[..r];
             sum.fill(0.0);
-            for k in 0..width {
+            for (k, column) in block.chunks_exact(size).enumerate() {
                 let xk = x[node.first + k];
                 if xk == 0.0 {
                     continue;
                 }
-                let column = &block[k * size..(k + 1) * size];
-                for i in k + 1..width {
-                    x[node.first + i] -= column[i] * xk;
+                let (pivots, below) = column.split_at(width);
+                for (xi, &l) in x[node.first + k + 1..node.end].iter_mut().zip(&pivots[k + 1..]) {
+                    *xi -= l * xk;
                 }
-                for (s, &l) in sum.iter_mut().zip(&column[width..]) {
+                for (s, &l) in sum.iter_mut().zip(below) {
                     *s += l * xk;
                 }
             }
@@ -269,25 +279,27 @@ impl FrontalLu {
                 x[row] -= s;
             }
         }
-        // Backward: reverse column order, the rows below first, then the upper block.
+        // Backward: reverse column order, the rows below gathered and taken off each pivot row
+        // by a dot product, then the upper triangle of the pivot block.
         for node in self.supernodes.iter().rev() {
-            let (size, width) = (node.size(), node.width());
+            let (size, width, r) = (node.size(), node.width(), node.below.len());
             let block = &self.lower[node.lower_at..node.lower_at + size * width];
-            let upper = &self.upper[node.upper_at..node.upper_at + width * node.below.len()];
-            for (j, &row) in node.below.iter().enumerate() {
-                let xr = x[row];
-                if xr != 0.0 {
-                    for (i, &u) in upper[j * width..(j + 1) * width].iter().enumerate() {
-                        x[node.first + i] -= u * xr;
-                    }
+            if r > 0 {
+                let gathered = &mut self.sum[..r];
+                for (g, &row) in gathered.iter_mut().zip(&node.below) {
+                    *g = x[row];
+                }
+                let upper = &self.upper[node.upper_at..node.upper_at + width * r];
+                for (xi, row) in x[node.first..node.end].iter_mut().zip(upper.chunks_exact(r)) {
+                    *xi -= dot(row, gathered);
                 }
             }
             for k in (0..width).rev() {
-                let column = &block[k * size..(k + 1) * size];
+                let column = &block[k * size..k * size + width];
                 let xk = x[node.first + k] / column[k];
                 x[node.first + k] = xk;
-                for i in 0..k {
-                    x[node.first + i] -= column[i] * xk;
+                for (xi, &u) in x[node.first..node.first + k].iter_mut().zip(&column[..k]) {
+                    *xi -= u * xk;
                 }
             }
         }
@@ -298,29 +310,58 @@ impl FrontalLu {
     }
 }
 
-/// Eliminates the first `width` pivots of the column-major `size` × `size` frontal matrix in
-/// place: LU of the pivot block, the panels by triangular solves, then the Schur complement by
-/// one matrix product. A pivot passes the threshold test when no multiplier in its column
-/// exceeds 1/PIVOT_THRESHOLD (|l_ik| = |a_ik| / |u_kk|).
-fn factor_front(front: &mut [f64], size: usize, width: usize) -> Result<(), UnstablePivot> {
+/// Σ a_i b_i with four running sums, so that the additions do not wait on one another.
+fn dot(a: &[f64], b: &[f64]) -> f64 {
+    let mut sums = [0.0; 4];
+    let (a4, b4) = (a.chunks_exact(4), b.chunks_exact(4));
+    let tail: f64 = a4
+        .remainder()
+        .iter()
+        .zip(b4.remainder())
+        .map(|(x, y)| x * y)
+        .sum();
+    for (x, y) in a4.zip(b4) {
+        for l in 0..4 {
+            sums[l] += x[l] * y[l];
+        }
+    }
+    (sums[0] + sums[1]) + (sums[2] + sums[3]) + tail
+}
+
+/// Pivot blocks wider than this are split in two and factored recursively, so that most of
+/// their arithmetic, too, is matrix products.
+pub const BLOCK: usize = 24;
+
+/// Eliminates the first `width` pivots of the `size` × `size` frontal matrix stored column-major
+/// in `front` with columns `ld` apart: LU of the pivot block, the panels by triangular solves,
+/// then the Schur complement by one matrix product. A pivot passes the threshold test when no
+/// multiplier in its column exceeds 1/PIVOT_THRESHOLD (|l_ik| = |a_ik| / |u_kk|).
+fn factor_front(front: &mut [f64], ld: usize, size: usize, width: usize) -> Result<(), UnstablePivot> {
+    if width > BLOCK {
+        // Left half first (its Schur complement covers the right half), then the right half
+        // of what remains: a right-looking blocked LU.
+        let half = width / 2;
+        factor_front(front, ld, size, half)?;
+        return factor_front(&mut front[half + half * ld..], ld, size - half, width - half);
+    }
     let bound = 1.0 / PIVOT_THRESHOLD;
     for k in 0..width {
-        let pivot = front[k + k * size];
+        let pivot = front[k + k * ld];
         if !pivot.is_finite() || pivot == 0.0 {
             return Err(UnstablePivot);
         }
-        for v in &mut front[k * size + k + 1..k * size + width] {
+        for v in &mut front[k * ld + k + 1..k * ld + width] {
             *v /= pivot;
             if v.abs() > bound {
                 return Err(UnstablePivot);
             }
         }
         for j in k + 1..width {
-            let u = front[k + j * size];
+            let u = front[k + j * ld];
             if u != 0.0 {
-                let (left, right) = front.split_at_mut(j * size);
-                let column = &left[k * size..k * size + width];
-                for (x, &l) in right[k + 1..width].iter_mut().zip(&column[k + 1..]) {
+                let (left, right) = front.split_at_mut(j * ld);
+                let column = &left[k * ld + k + 1..k * ld + width];
+                for (x, &l) in right[k + 1..width].iter_mut().zip(column) {
                     *x -= l * u;
                 }
             }
@@ -329,7 +370,8 @@ fn factor_front(front: &mut [f64], size: usize, width: usize) -> Result<(), Unst
     if width == size {
         return Ok(());
     }
-    let matrix = MatMut::from_column_major_slice_mut(front, size, size);
+    let matrix =
+        MatMut::from_column_major_slice_with_stride_mut(&mut front[..(size - 1) * ld + size], size, size, ld);
     let (pivots, mut right_of, mut below, mut rest) = matrix.split_at_mut(width, width);
     // L21 U11 = A21, solved as U11ᵀ L21ᵀ = A21ᵀ; U12 = L11⁻¹ A12.
     solve_lower_triangular_in_place(pivots.rb().transpose(), below.rb_mut().transpose_mut(), Par::Seq);

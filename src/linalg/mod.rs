@@ -315,6 +315,14 @@ mod tests {
                 matches!(frontal.kind, Kind::Frontal(_)),
                 "a sparse system takes the fixed order"
             );
+            if let Kind::Frontal(lu) = &frontal.kind {
+                if n == 1500 {
+                    assert!(
+                        lu.widest() > frontal::BLOCK,
+                        "the blocked pivot factorisation is exercised"
+                    );
+                }
+            }
             let mut dense = LinearSolver::new(pattern.clone(), Some(true));
             for solver in [&mut frontal, &mut dense] {
                 solver.factor(&values).unwrap();
