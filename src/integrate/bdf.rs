@@ -231,9 +231,10 @@ fn newton(
 
 /// Iterates a converged step further, with a fresh Jacobian, while each correction is smaller
 /// than the last, down to `tol`. Used on the step that lands on the end time: a converged step
-/// may sit anywhere within 3 % of the tolerance of its solution, and that offset would be the end state's error even
-/// where the solution has long settled (seen as 1e-8-1e-7 relative on a 1000-species network
-/// at equilibrium). It never fails the step: a correction that does not shrink is not applied.
+/// may sit anywhere within 3 % of the tolerance of its solution, and that offset would be the
+/// end state's error even where the solution has long settled (seen as 1e-8-1e-7 relative on a
+/// 1000-species network at equilibrium). It never fails the step: a correction that does not
+/// shrink is not applied.
 fn polish(
     model: &RateModel,
     iteration: &mut Iteration,
