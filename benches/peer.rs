@@ -157,7 +157,7 @@ fn main() {
             name,
             network.n_species(),
             t_end,
-            s.steps,
+            format!("{}+{}", s.steps, s.rejected_steps),
             s.rhs_evals,
             s.jacobian_evals,
             s.lu_factorizations,
