@@ -6,8 +6,10 @@
 //! step), a step-size change multiplies D by R(ρ)U (their eq. 2.4-2.6), κ = (−0.1850, −1/9,
 //! −0.0823, −0.0415, 0) improves stability over plain BDF at orders 1-4, and the error estimate
 //! of order k is (κγ_k + 1/(k+1))·∇^{k+1}y. Step size and order are reconsidered after k + 1
-//! steps of equal size, and a growth below 1.5 is not taken (CVODE's rule). The iteration matrix I − (h/α_k) J is refactored only when h/α_k has
-//! moved by more than 30 % from the value it was factored with; in between, each Newton
+//! steps of equal size; a growth below 1.5 is not taken, and the higher order's error estimate
+//! is weighted against raising the order (both as in CVODE). The iteration matrix I − (h/α_k) J
+//! is refactored only when h/α_k has moved by more than 30 % from the value it was factored
+//! with; in between, each Newton
 //! correction is scaled by 2/(1 + ratio) of the two values, as in CVODE (Hindmarsh et al., ACM
 //! TOMS 31, 2005, section 2.1) so that the stale matrix does not slow convergence. The Jacobian
 //! is re-evaluated only when Newton fails to converge with an old one. Newton stops when the
