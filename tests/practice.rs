@@ -1,7 +1,7 @@
 //! The practitioner's questions answered as asked: units on every option, verdicts at the hold
 //! time, messages that point at the fix.
 
-use crate::util::{kinequil, write_case, ISOMERISATION};
+use crate::util::{kinequil, kinequil_ok, write_case, ISOMERISATION};
 
 fn stderr_of(args: &[&str]) -> (Option<i32>, String) {
     let out = kinequil(args);
@@ -52,13 +52,7 @@ fn until_takes_units_like_the_other_time_options() {
     let mut tables: Vec<f64> = Vec::new();
     for (k, until) in ["0.6", "0.6 s", "0.01 min"].iter().enumerate() {
         let out_dir = dir.path().join(format!("o{k}"));
-        let out = kinequil(&["run", &case, "--until", until, "--out", out_dir.to_str().unwrap()]);
-        assert_eq!(
-            out.status.code(),
-            Some(0),
-            "{}",
-            String::from_utf8_lossy(&out.stderr)
-        );
+        kinequil_ok(&["run", &case, "--until", until, "--out", out_dir.to_str().unwrap()]);
         let summary: serde_json::Value =
             serde_json::from_str(&std::fs::read_to_string(out_dir.join("summary.json")).unwrap()).unwrap();
         assert_eq!(summary["final_time"].as_f64(), Some(0.6));
@@ -245,7 +239,7 @@ fn charts_mark_the_hold_time_and_keep_the_limiting_step() {
     let dir = tempfile::tempdir().unwrap();
     let case = write_case(dir.path(), "chain.toml", &text);
     let out_dir = dir.path().join("o");
-    let out = kinequil(&[
+    kinequil_ok(&[
         "run",
         &case,
         "--until",
@@ -255,12 +249,6 @@ fn charts_mark_the_hold_time_and_keep_the_limiting_step() {
         "--out",
         out_dir.to_str().unwrap(),
     ]);
-    assert_eq!(
-        out.status.code(),
-        Some(0),
-        "{}",
-        String::from_utf8_lossy(&out.stderr)
-    );
     let quotients = std::fs::read_to_string(out_dir.join("quotients.svg")).unwrap();
     assert!(
         quotients.contains("step 8: S7 &lt;=&gt; S8"),
@@ -342,8 +330,7 @@ fn a_gas_run_charts_its_pressures() {
     let dir = tempfile::tempdir().unwrap();
     let case = concat!(env!("CARGO_MANIFEST_DIR"), "/cases/gas_dissociation.toml");
     let out_dir = dir.path().join("o");
-    let out = kinequil(&["run", case, "--out", out_dir.to_str().unwrap()]);
-    assert_eq!(out.status.code(), Some(0));
+    kinequil_ok(&["run", case, "--out", out_dir.to_str().unwrap()]);
     let svg = std::fs::read_to_string(out_dir.join("pressures.svg")).unwrap();
     assert!(
         svg.contains("pressure [bar]") && svg.contains("total"),
@@ -381,7 +368,7 @@ fn a_sweep_judges_on_the_same_species_as_a_run() {
     let dir = tempfile::tempdir().unwrap();
     let case = concat!(env!("CARGO_MANIFEST_DIR"), "/cases/demo.toml");
     let sweep_dir = dir.path().join("s");
-    let out = kinequil(&[
+    kinequil_ok(&[
         "sweep",
         case,
         "--vary",
@@ -393,12 +380,6 @@ fn a_sweep_judges_on_the_same_species_as_a_run() {
         "--out",
         sweep_dir.to_str().unwrap(),
     ]);
-    assert_eq!(
-        out.status.code(),
-        Some(0),
-        "{}",
-        String::from_utf8_lossy(&out.stderr)
-    );
     let table = std::fs::read_to_string(sweep_dir.join("sweep.csv")).unwrap();
     let mut lines = table.lines();
     let header: Vec<&str> = lines.next().unwrap().split(',').collect();
@@ -406,7 +387,7 @@ fn a_sweep_judges_on_the_same_species_as_a_run() {
     let column = header.iter().position(|h| *h == "t_1pct_s").unwrap();
     let swept: f64 = row[column].parse().unwrap();
     let run_dir = dir.path().join("r");
-    let out = kinequil(&[
+    kinequil_ok(&[
         "run",
         case,
         "--settle-on",
@@ -414,7 +395,6 @@ fn a_sweep_judges_on_the_same_species_as_a_run() {
         "--out",
         run_dir.to_str().unwrap(),
     ]);
-    assert_eq!(out.status.code(), Some(0));
     let summary: serde_json::Value =
         serde_json::from_str(&std::fs::read_to_string(run_dir.join("summary.json")).unwrap()).unwrap();
     assert_eq!(summary["judged_species"], serde_json::json!(["acid"]));

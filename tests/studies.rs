@@ -12,22 +12,12 @@
 
 use std::path::Path;
 
-use crate::util::{kinequil, rel, write_case};
+use crate::util::{kinequil, kinequil_ok as ok, rel, write_case};
 
 const R: f64 = 8.314_462_618;
 
 fn json(path: &Path) -> serde_json::Value {
     serde_json::from_str(&std::fs::read_to_string(path).unwrap()).unwrap()
-}
-
-fn ok(args: &[&str]) -> String {
-    let out = kinequil(args);
-    assert!(
-        out.status.success(),
-        "{args:?} failed: {}",
-        String::from_utf8_lossy(&out.stderr)
-    );
-    String::from_utf8_lossy(&out.stdout).into_owned()
 }
 
 #[test]

@@ -54,6 +54,18 @@ pub fn kinequil(args: &[&str]) -> Output {
         .expect("binary runs")
 }
 
+/// Runs the binary, asserts that it succeeded (showing its error output if not) and returns
+/// what it printed.
+pub fn kinequil_ok(args: &[&str]) -> String {
+    let out = kinequil(args);
+    assert!(
+        out.status.success(),
+        "{args:?} failed: {}",
+        String::from_utf8_lossy(&out.stderr)
+    );
+    String::from_utf8_lossy(&out.stdout).into_owned()
+}
+
 /// Writes a network file into `dir` and returns its path as a string.
 pub fn write_case(dir: &Path, name: &str, text: &str) -> String {
     let path = dir.join(name);
