@@ -62,6 +62,9 @@ pub struct Stoichiometry {
     pub local_conservation: Vec<ConservationLaw>,
     /// Rank of N: the number of independent reactions.
     pub rank: usize,
+    /// The reactions independent of those before them in the file: a basis of N's columns
+    /// (`rank` of them), on which any change the network can make has unique extents.
+    pub independent: Vec<usize>,
 }
 
 impl Stoichiometry {
@@ -72,7 +75,7 @@ impl Stoichiometry {
             .iter()
             .map(|r| net_change(&r.reactants, &r.products))
             .collect();
-        let (local, rank) = left_null_space(n_species, &columns);
+        let (local, independent) = left_null_space(n_species, &columns);
         let mut polished: Vec<Row> = local.clone();
         fewer_negatives(&mut polished);
         let as_laws = |rows: Vec<Row>| -> Vec<ConservationLaw> {
@@ -85,7 +88,8 @@ impl Stoichiometry {
             columns,
             conservation: as_laws(polished),
             local_conservation: as_laws(local),
-            rank,
+            rank: independent.len(),
+            independent,
         }
     }
 }
@@ -195,14 +199,17 @@ impl Echelon {
 }
 
 /// Basis of {l : lᵀN = 0} from the rows of Nᵀ (one per reaction), each law scaled to small
-/// whole numbers. Returns the basis and rank N.
-fn left_null_space(n_species: usize, columns: &[Row]) -> (Vec<Row>, usize) {
+/// whole numbers. Returns the basis and the reactions independent of the earlier ones.
+fn left_null_space(n_species: usize, columns: &[Row]) -> (Vec<Row>, Vec<usize>) {
     let mut echelon = Echelon::new(n_species);
-    for column in columns {
-        echelon.insert(column, 0.0);
-    }
+    let independent = columns
+        .iter()
+        .enumerate()
+        .filter(|(_, column)| echelon.insert(column, 0.0) == Insert::Independent)
+        .map(|(j, _)| j)
+        .collect();
     let rows: Vec<Row> = echelon.null_space().into_iter().map(tidy).collect();
-    (rows, echelon.rank())
+    (rows, independent)
 }
 
 /// Most bases this size are worth polishing; beyond it the quadratic search is skipped.
@@ -302,13 +309,13 @@ mod tests {
     use super::*;
 
     fn polished(n: usize, columns: &[Row]) -> (Vec<ConservationLaw>, usize) {
-        let (mut rows, rank) = left_null_space(n, columns);
+        let (mut rows, independent) = left_null_space(n, columns);
         fewer_negatives(&mut rows);
         let laws = rows
             .into_iter()
             .map(|coefficients| ConservationLaw { coefficients })
             .collect();
-        (laws, rank)
+        (laws, independent.len())
     }
 
     /// Checks lᵀN = 0 for every law (by recomposition; tolerance 1e-12, rounding only).
