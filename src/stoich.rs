@@ -29,20 +29,39 @@ impl ConservationLaw {
 
     /// Human-readable form, e.g. `A + 2 C`.
     pub fn describe(&self, names: &[String]) -> String {
+        self.describe_within(names, usize::MAX)
+    }
+
+    /// As [`describe`](Self::describe), but a law of more than `terms` species shows its first
+    /// terms and its last, e.g. `A0 + A1 + … + 70 A4999 (5000 species)`: a total over thousands
+    /// of species is unreadable written out, and the summary JSON keeps it whole.
+    pub fn describe_within(&self, names: &[String], terms: usize) -> String {
+        let n = self.coefficients.len();
+        let shown: Vec<usize> = if n <= terms.max(2) {
+            (0..n).collect()
+        } else {
+            (0..terms.max(2) - 1).chain([n - 1]).collect()
+        };
         let mut text = String::new();
-        for (k, &(i, c)) in self.coefficients.iter().enumerate() {
-            let sign = if c < 0.0 { "-" } else { "+" };
+        for (k, &at) in shown.iter().enumerate() {
+            let (i, c) = self.coefficients[at];
             if k == 0 {
                 if c < 0.0 {
                     text.push('-');
                 }
             } else {
-                text.push_str(&format!(" {sign} "));
+                if at != shown[k - 1] + 1 {
+                    text.push_str(" + …");
+                }
+                text.push_str(if c < 0.0 { " - " } else { " + " });
             }
             if (c.abs() - 1.0).abs() > 1e-12 {
                 text.push_str(&format!("{} ", crate::format::coefficient(c.abs())));
             }
             text.push_str(&names[i]);
+        }
+        if shown.len() < n {
+            text.push_str(&format!(" ({n} species)"));
         }
         text
     }
@@ -373,6 +392,17 @@ mod tests {
         for law in &laws {
             assert!(law.coefficients.iter().all(|e| e.1 > 0.0), "{law:?}");
         }
+    }
+
+    #[test]
+    fn long_laws_are_shortened_to_their_first_and_last_terms() {
+        let names: Vec<String> = (0..6).map(|i| format!("X{i}")).collect();
+        let law = ConservationLaw {
+            coefficients: (0..6).map(|i| (i, if i == 5 { -2.0 } else { 1.0 })).collect(),
+        };
+        assert_eq!(law.describe(&names), "X0 + X1 + X2 + X3 + X4 - 2 X5");
+        assert_eq!(law.describe_within(&names, 3), "X0 + X1 + … - 2 X5 (6 species)");
+        assert_eq!(law.describe_within(&names, 6), law.describe(&names));
     }
 
     #[test]

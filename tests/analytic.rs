@@ -90,7 +90,7 @@ fn both_integration_methods_give_three_good_digits_of_time_to_equilibrium() {
             method,
             ..kinequil::RunSettings::default()
         };
-        let result = kinequil::run(&crate::util::network(A_TO_B), &settings).expect("run succeeds");
+        let result = kinequil::run(crate::util::network(A_TO_B), &settings).expect("run succeeds");
         assert!(
             result.solution.equilibrium_at.is_some() && !result.disagrees,
             "{method:?}"

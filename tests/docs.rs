@@ -20,7 +20,7 @@ fn readme_network_example_parses_and_runs_clean() {
     );
     // A reader copies this example first: it must reach a solved equilibrium that the
     // integration agrees with, and its constants must pass the audit.
-    let result = kinequil::run(&network, &kinequil::RunSettings::default()).unwrap();
+    let result = kinequil::run(network, &kinequil::RunSettings::default()).unwrap();
     assert!(result.solved.is_ok(), "{:?}", result.solved);
     assert!(result.disagreement.is_some() && !result.disagrees, "routes agree");
     assert!(result.audit.brief().is_empty(), "{:?}", result.audit.brief());
@@ -42,7 +42,7 @@ fn every_bundled_case_runs_to_a_result() {
                 },
                 ..RunSettings::default()
             };
-            let result = run(&network, &settings).unwrap_or_else(|e| panic!("{}: {e}", path.display()));
+            let result = run(network, &settings).unwrap_or_else(|e| panic!("{}: {e}", path.display()));
             assert!(
                 result.drift.iter().all(|d| *d < 1e-10),
                 "{}: drift {:?}",

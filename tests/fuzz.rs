@@ -173,7 +173,7 @@ fn exercise(text: &str) -> Result<(), String> {
             max_seconds: Some(2.0),
             ..RunSettings::default()
         };
-        if let Ok(result) = run(&net, &settings) {
+        if let Ok(result) = run(net, &settings) {
             let terminal = kinequil::terminal_text(&result, &[]);
             if has_non_number(&terminal) {
                 return Err(format!("terminal output holds a non-number:\n{terminal}"));

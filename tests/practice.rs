@@ -177,7 +177,7 @@ fn a_trace_side_product_need_not_set_the_hold_time() {
         settle_on: Some(vec![0, 1]),
         ..kinequil::RunSettings::default()
     };
-    let judged = kinequil::run(&crate::util::network(text), &settings).unwrap();
+    let judged = kinequil::run(crate::util::network(text), &settings).unwrap();
     for (all, pair) in every.settling.iter().zip(&judged.settling).take(2) {
         let (all, pair) = (all.seconds.unwrap(), pair.seconds.unwrap());
         let exact = (1.0 / pair_tolerance(&judged, pair)).ln() / 3.0;

@@ -229,7 +229,7 @@ fn summary_carries_stable_tags_beside_the_sentences() {
             .join("cases")
             .join(name);
         let net = kinequil::Network::from_file(&path).unwrap();
-        let result = kinequil::run(&net, &kinequil::RunSettings::default()).unwrap();
+        let result = kinequil::run(net, &kinequil::RunSettings::default()).unwrap();
         serde_json::to_value(Summary::from_result(&result)).unwrap()
     };
     let demo = case("demo.toml");

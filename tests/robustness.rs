@@ -253,7 +253,7 @@ fn random_detailed_balance_networks_solve_detect_and_agree() {
             );
         }
 
-        let result = run(&network(&original), &RunSettings::default()).expect("run succeeds");
+        let result = run(network(&original), &RunSettings::default()).expect("run succeeds");
         let solved = result
             .solved
             .as_ref()
@@ -335,7 +335,7 @@ K = 1e10
         atol: 1e-20,
         ..RunSettings::default()
     };
-    let result = run(&network(t), &settings).expect("run succeeds");
+    let result = run(network(t), &settings).expect("run succeeds");
     assert!(result.solution.equilibrium_at.is_some());
     for state in &result.solution.trajectory.states[1..] {
         let (x, y) = (state[1], state[2]);
@@ -376,7 +376,7 @@ K = 0.01
     // The integration settles in the same place (1e-5: the run stops within ten integration
     // tolerances of the solved state, 1e-7 mol/L at [A] = 0.01; the presence switch leaves
     // about 1e-13 mol/L of the used-up solid).
-    let result = run(&net, &RunSettings::default()).expect("run succeeds");
+    let result = run(net, &RunSettings::default()).expect("run succeeds");
     let end = result.solution.trajectory.last_state();
     assert!(
         end[0] < 1e-9 && rel(end[1], 1.49) < 1e-5 && rel(end[2], 0.01) < 1e-5,
@@ -414,9 +414,9 @@ fn every_bundled_case_with_an_equilibrium_reaches_it_and_the_routes_agree() {
     for entry in std::fs::read_dir(dir).unwrap() {
         let path = entry.unwrap().path();
         let net = kinequil::Network::from_file(&path).unwrap();
-        let result = run(&net, &RunSettings::default()).expect("bundled case runs");
+        let result = run(net, &RunSettings::default()).expect("bundled case runs");
         let name = path.display();
-        if net.reactions.iter().all(|r| r.reversible) {
+        if result.network.reactions.iter().all(|r| r.reversible) {
             let solved = result.solved.as_ref().unwrap_or_else(|e| panic!("{name}: {e}"));
             assert!(solved.max_total_residual < 1e-12, "{name}");
             assert!(
@@ -440,7 +440,7 @@ fn a_horizon_too_short_is_said_with_figures_not_blamed_on_one_way_steps() {
     // A <=> B with kf = kr = 1e-17 /s: τ = 1/(kf + kr) = 5e16 s (textbook first-order
     // relaxation), beyond the longest automatic horizon of 1e16 s.
     let t = "[species]\nA = 1.0\nB = 0.0\n\n[[reaction]]\nscheme = \"A <=> B\"\nkf = 1e-17\nkr = 1e-17\n";
-    let result = run(&network(t), &RunSettings::default()).expect("run succeeds");
+    let result = run(network(t), &RunSettings::default()).expect("run succeeds");
     assert!(result.solution.equilibrium_at.is_none());
     let said = kinequil::Summary::from_result(&result).stop_reason;
     assert!(
@@ -458,7 +458,7 @@ fn an_approach_far_from_the_linear_regime_is_flagged() {
     // fast, the equilibrium relaxation (1/τ = 4 kf [A]eq + kr) slow, so τ·ln(1/tol) overstates
     // the integrated time by orders of magnitude and the run must say so.
     let t = "[species]\nA = 1.0\nB = 0.0\n\n[[reaction]]\nscheme = \"2 A <=> B\"\nkf = 1e6\nkr = 1e-8\n";
-    let result = run(&network(t), &RunSettings::default()).expect("run succeeds");
+    let result = run(network(t), &RunSettings::default()).expect("run succeeds");
     assert!(result.solution.equilibrium_at.is_some() && !result.disagrees);
     let note = kinequil::Summary::from_result(&result)
         .relaxation_estimate_note
@@ -469,7 +469,7 @@ fn an_approach_far_from_the_linear_regime_is_flagged() {
         &std::path::Path::new(env!("CARGO_MANIFEST_DIR")).join("cases/demo.toml"),
     )
     .unwrap();
-    let result = run(&demo, &RunSettings::default()).expect("run succeeds");
+    let result = run(demo, &RunSettings::default()).expect("run succeeds");
     assert!(kinequil::Summary::from_result(&result)
         .relaxation_estimate_note
         .is_none());

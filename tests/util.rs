@@ -24,7 +24,7 @@ pub fn run_with(text: &str, rtol: f64, atol: f64, until: Option<f64>) -> RunResu
         until,
         ..RunSettings::default()
     };
-    run(&network(text), &settings).expect("run succeeds")
+    run(network(text), &settings).expect("run succeeds")
 }
 
 /// |a - b| / |b|.

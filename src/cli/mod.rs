@@ -308,7 +308,7 @@ fn run_command(args: RunArgs) -> Result<String, Error> {
             None => None,
         },
     };
-    let result = run::run(&network, &settings)?;
+    let result = run::run(network, &settings)?;
     let files = report::render_run(&result, &chart)?;
     let written = report::write_all(&out, &files, args.force)?;
     Ok(report::terminal::render(&result, &written))

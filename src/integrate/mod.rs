@@ -161,6 +161,10 @@ impl Trajectory {
     /// integrated span).
     pub fn state_at(&self, t: f64) -> Vec<f64> {
         let k = self.interval(t);
+        // At a step itself (every row of the trajectory table), the stored state as it is.
+        if let Some(at) = (k..self.times.len().min(k + 2)).find(|&j| self.times[j] == t) {
+            return self.states[at].clone();
+        }
         (0..self.states[0].len()).map(|i| self.hermite(k, i, t)).collect()
     }
 

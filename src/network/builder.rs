@@ -26,7 +26,7 @@ use super::{
 /// // K = kf/kr = 2, so two thirds end up as B.
 /// let solved = kinequil::solve_equilibrium(&network, &Stoichiometry::new(&network))?;
 /// assert!((solved.concentrations[1] - 2.0 / 3.0).abs() < 1e-12);
-/// let result = kinequil::run(&network, &kinequil::RunSettings::default())?;
+/// let result = kinequil::run(network, &kinequil::RunSettings::default())?;
 /// assert!(result.solution.equilibrium_at.is_some() && !result.disagrees);
 /// # Ok::<(), Box<dyn std::error::Error>>(())
 /// ```

@@ -48,10 +48,17 @@ code { font-size: 0.95em; }
 
 /// Escapes text for HTML.
 pub fn escape(text: &str) -> String {
-    text.replace('&', "&amp;")
-        .replace('<', "&lt;")
-        .replace('>', "&gt;")
-        .replace('"', "&quot;")
+    let mut out = String::with_capacity(text.len());
+    for c in text.chars() {
+        match c {
+            '&' => out.push_str("&amp;"),
+            '<' => out.push_str("&lt;"),
+            '>' => out.push_str("&gt;"),
+            '"' => out.push_str("&quot;"),
+            _ => out.push(c),
+        }
+    }
+    out
 }
 
 pub fn render(result: &RunResult, inputs: &ReportInputs<'_>) -> String {
@@ -343,7 +350,7 @@ fn solver(h: &mut String, result: &RunResult, inputs: &ReportInputs<'_>) {
         .conservation
         .iter()
         .zip(&result.drift)
-        .map(|(l, d)| format!("{} (drift {d:.1e})", escape(&l.describe(&names))))
+        .map(|(l, d)| format!("{} (drift {d:.1e})", escape(&l.describe_within(&names, 12))))
         .collect();
     if !laws.is_empty() {
         let _ = writeln!(h, "<p>Conserved totals: {}.</p>", laws.join("; "));

@@ -169,9 +169,8 @@ struct Fields {
 
 impl Fields {
     fn number<W: std::io::Write>(&mut self, writer: &mut csv::Writer<W>, value: f64) -> std::io::Result<()> {
-        use std::fmt::Write;
         self.buffer.clear();
-        write!(self.buffer, "{value:.9e}").expect("writing to a String");
+        crate::format::push_scientific(&mut self.buffer, value);
         writer.write_field(&self.buffer).map_err(std::io::Error::other)
     }
 }

@@ -14,6 +14,10 @@ use super::{trim_percent, with_digits, CAUTIONS};
 /// Relaxation modes listed on the terminal (all of them are in summary.json).
 const MODES_SHOWN: usize = 5;
 
+/// Conservation laws listed, and species written out in each (the rest are in summary.json).
+const LAWS_SHOWN: usize = 10;
+const TERMS_SHOWN: usize = 8;
+
 pub fn render(result: &RunResult, files: &[PathBuf]) -> String {
     let mut out = String::new();
     write_header(&mut out, result);
@@ -127,13 +131,22 @@ fn write_conservation(out: &mut String, result: &RunResult) {
             laws.len(),
             if laws.len() == 1 { "" } else { "s" }
         );
-        for (law, drift) in laws.iter().zip(&result.drift) {
+        for (law, drift) in laws.iter().zip(&result.drift).take(LAWS_SHOWN) {
             let _ = writeln!(
                 out,
                 "    {} = {} mol/L   drift {:.1e}",
-                law.describe(&names),
+                law.describe_within(&names, TERMS_SHOWN),
                 with_digits(law.total(&result.solution.trajectory.states[0]), 7),
                 drift
+            );
+        }
+        if laws.len() > LAWS_SHOWN {
+            let rest = &result.drift[LAWS_SHOWN..];
+            let _ = writeln!(
+                out,
+                "    and {} more (each in summary.json), drift at most {:.1e}",
+                laws.len() - LAWS_SHOWN,
+                rest.iter().fold(0.0_f64, |m, d| m.max(*d))
             );
         }
     }
