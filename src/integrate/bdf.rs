@@ -27,8 +27,8 @@ use crate::linalg::LinearSolver;
 use crate::stoich::ConservationLaw;
 
 use super::{
-    equilibrium_test, next_move, start, EquilibriumDetector, Move, Options, Projection, Solution, Start,
-    Stats,
+    equilibrium_test, next_move, start, EquilibriumDetector, Move, Options, Projection, Slope, Solution,
+    Start, Stats,
 };
 
 const MAX_ORDER: usize = 5;
@@ -306,7 +306,7 @@ pub(super) fn integrate(
     let n = model.n_species();
     let pattern = model.pattern().clone();
     let mut iteration = Iteration {
-        solver: LinearSolver::new(pattern.clone(), options.force_dense),
+        solver: LinearSolver::for_newton(pattern.clone(), options.force_dense),
         jac: vec![0.0; pattern.nnz()],
         matrix: vec![0.0; pattern.nnz()],
         diagonal: pattern.diagonal_positions(),
@@ -328,10 +328,11 @@ pub(super) fn integrate(
     let Start {
         max_time,
         mut y,
-        mut f,
+        f,
         mut trajectory,
         mut h,
     } = start(model, c0, options, &mut stats);
+    trajectory.push(0.0, &y, Slope::Order(1));
     let mut t = 0.0;
     iteration.jacobian(model, &y, &mut stats);
 
@@ -481,13 +482,7 @@ pub(super) fn integrate(
         }
         d[0].copy_from_slice(&y);
         t = t_new;
-        // y'(t_n) = (1/h) Σ_{j=1..k} ∇^j y_n / j, for the trajectory's Hermite interpolation.
-        f.fill(0.0);
-        for (j, row) in d.iter().enumerate().take(order + 1).skip(1) {
-            let w = 1.0 / (j as f64 * h);
-            f.iter_mut().zip(row).for_each(|(x, v)| *x += w * v);
-        }
-        trajectory.push(t, &y, &f);
+        trajectory.push(t, &y, Slope::Order(order));
 
         if options.to_equilibrium && equilibrium_at.is_none() {
             let reached = equilibrium_test(

@@ -108,17 +108,33 @@ pub struct Stats {
     pub seconds: f64,
 }
 
-/// The integrated trajectory at every accepted step, with derivatives for Hermite
-/// interpolation between steps.
+/// The integrated trajectory at every accepted step.
 ///
-/// Derivatives are kept in single precision: they enter the interpolant only multiplied by the
-/// step length, where their relative rounding (6e-8) is far below the integration tolerance,
-/// and they are half of a large network's memory otherwise.
+/// Between steps it is the cubic Hermite interpolant. Its slope at a step is, from RODAS4, the
+/// rate function there, which the method evaluates anyway (kept in single precision: it enters
+/// the interpolant only multiplied by the step length, where 6e-8 relative is far below the
+/// integration tolerance). The NDF keeps no slopes: a large network's slopes would double the
+/// trajectory's memory. Its slope at a step is that of the polynomial through the neighbouring
+/// steps, of the degree of the method's order there (at least 2, centred where the steps
+/// allow), as the method's own interpolant is a polynomial through its past steps. Not the rate
+/// function at the stored state either: on a stiff component f amplifies the state's error by
+/// the stiffness, and the interpolant would wander between steps by that much.
 #[derive(Debug, Clone, Default)]
 pub struct Trajectory {
     pub times: Vec<f64>,
     pub states: Vec<Vec<f64>>,
-    pub derivatives: Vec<Vec<f32>>,
+    /// Slope at each step, when the method gave it (RODAS4).
+    rates: Vec<Vec<f32>>,
+    /// Degree of the slope polynomial at each step, when it did not (NDF).
+    degrees: Vec<u8>,
+}
+
+/// What a method knows of the slope at a step it adds to the trajectory.
+pub(crate) enum Slope<'a> {
+    /// The rate function at the step.
+    Rate(&'a [f64]),
+    /// The method's order there.
+    Order(usize),
 }
 
 impl Stats {
@@ -136,17 +152,19 @@ impl Stats {
 }
 
 impl Trajectory {
-    fn push(&mut self, t: f64, state: &[f64], derivative: &[f64]) {
+    fn push(&mut self, t: f64, state: &[f64], slope: Slope<'_>) {
         self.times.push(t);
         self.states.push(state.to_vec());
-        // Clamped so that a derivative beyond single range stays finite (it then bends the
-        // interpolant on that one step instead of making it infinite).
-        self.derivatives.push(
-            derivative
-                .iter()
-                .map(|&d| d.clamp(-f32::MAX as f64, f32::MAX as f64) as f32)
-                .collect(),
-        );
+        match slope {
+            // Clamped so that a rate beyond single range stays finite (it then bends the
+            // interpolant on that one step instead of making it infinite).
+            Slope::Rate(f) => self.rates.push(
+                f.iter()
+                    .map(|&d| d.clamp(-f32::MAX as f64, f32::MAX as f64) as f32)
+                    .collect(),
+            ),
+            Slope::Order(order) => self.degrees.push(order.clamp(2, 5) as u8),
+        }
     }
 
     pub fn end_time(&self) -> f64 {
@@ -199,16 +217,43 @@ impl Trajectory {
         let h = t1 - t0;
         let s = ((t - t0) / h).clamp(0.0, 1.0);
         let (y0, y1) = (self.states[k][i], self.states[k + 1][i]);
-        let (d0, d1) = (
-            f64::from(self.derivatives[k][i]) * h,
-            f64::from(self.derivatives[k + 1][i]) * h,
-        );
+        let (d0, d1) = (self.slope(k, i) * h, self.slope(k + 1, i) * h);
         let s2 = s * s;
         let s3 = s2 * s;
         (2.0 * s3 - 3.0 * s2 + 1.0) * y0
             + (s3 - 2.0 * s2 + s) * d0
             + (-2.0 * s3 + 3.0 * s2) * y1
             + (s3 - s2) * d1
+    }
+
+    /// dy_i/dt at step n: the stored rate, or the derivative of the polynomial through step n
+    /// and its neighbours (degree/2 steps before it where there are as many), in Newton's
+    /// divided-difference form, differentiated by Horner's rule.
+    fn slope(&self, n: usize, i: usize) -> f64 {
+        if let Some(rates) = self.rates.get(n) {
+            return f64::from(rates[i]);
+        }
+        let last = self.times.len() - 1;
+        let degree = usize::from(self.degrees[n]).min(last);
+        let first = n.saturating_sub(degree / 2).min(last - degree);
+        let times = &self.times[first..=first + degree];
+        let mut table = [0.0; 6];
+        for (j, state) in self.states[first..=first + degree].iter().enumerate() {
+            table[j] = state[i];
+        }
+        // table[j] becomes the divided difference y[t_0 .. t_j].
+        for order in 1..=degree {
+            for j in (order..=degree).rev() {
+                table[j] = (table[j] - table[j - 1]) / (times[j] - times[j - order]);
+            }
+        }
+        let at = self.times[n];
+        let (mut value, mut slope) = (table[degree], 0.0);
+        for j in (0..degree).rev() {
+            slope = slope * (at - times[j]) + value;
+            value = value * (at - times[j]) + table[j];
+        }
+        slope
     }
 }
 
@@ -427,7 +472,7 @@ fn equilibrium_test(
 }
 
 /// What both methods start from: the horizon (never before the requested time), the state and
-/// its rate at t = 0, the trajectory's first point and a first step size.
+/// its rate at t = 0, an empty trajectory and a first step size.
 struct Start {
     max_time: f64,
     y: Vec<f64>,
@@ -443,8 +488,7 @@ fn start(model: &RateModel, c0: &[f64], options: &Options, stats: &mut Stats) ->
     let mut f = vec![0.0; y.len()];
     model.rhs(&y, &mut f);
     stats.rhs_evals += 1;
-    let mut trajectory = Trajectory::default();
-    trajectory.push(0.0, &y, &f);
+    let trajectory = Trajectory::default();
     let h = initial_step(&y, &f, options, end);
     Start {
         max_time,

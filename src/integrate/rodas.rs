@@ -12,7 +12,7 @@ use crate::stoich::ConservationLaw;
 
 use super::{
     advanced, equilibrium_test, error_norm, next_move, start, step_within, EquilibriumDetector, Move,
-    Options, Projection, Solution, Start, Stats,
+    Options, Projection, Slope, Solution, Start, Stats,
 };
 
 /// RODAS4 coefficients in the transformed formulation (Hairer & Wanner 1996, IV.7).
@@ -99,6 +99,7 @@ pub(super) fn integrate(
         mut trajectory,
         mut h,
     } = start(model, c0, options, &mut stats);
+    trajectory.push(0.0, &y, Slope::Rate(&f));
     let mut t = 0.0;
     let mut rodas = Rodas4::new(n, jac_pattern.nnz(), diagonal);
     let mut y_new = vec![0.0; n];
@@ -139,7 +140,7 @@ pub(super) fn integrate(
         stats.rhs_evals += 1;
         stats.steps += 1;
         worst_negative = worst_negative.min(negative);
-        trajectory.push(t, &y, &f);
+        trajectory.push(t, &y, Slope::Rate(&f));
 
         if options.to_equilibrium && equilibrium_at.is_none() {
             // y_new holds the state before the step.

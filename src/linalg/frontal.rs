@@ -75,8 +75,8 @@ pub struct FrontalLu {
     supernodes: Vec<Supernode>,
     /// Supernodes children first (a postorder of the supernode tree).
     schedule: Vec<usize>,
-    lower: Vec<f64>,
-    upper: Vec<f64>,
+    /// L and U, where the solves read them.
+    factors: Factors,
     /// Dense frontal matrix of the supernode being factored (column-major, largest size²).
     front: Vec<f64>,
     /// Update matrices waiting for their parent.
@@ -88,10 +88,50 @@ pub struct FrontalLu {
     factored: bool,
 }
 
+/// The factors: each supernode's m × w column block (L below, U's diagonal block on top) in
+/// `lower`, its w × r block of U to the right by rows in `upper`.
+///
+/// Stored in single precision when they are large: a triangular solve then reads every factor
+/// entry once for two flops, so its time is the memory traffic, which halves. Only for solves
+/// inside an iteration that computes its residual in double precision (a modified Newton
+/// iteration), where factors rounded to 6e-8 act as a slightly different iteration matrix and
+/// leave the converged answer unchanged: the idea of mixed-precision iterative refinement
+/// (Baboulin et al., Comput. Phys. Commun. 180 (2009) 2526; Carson & Higham, SIAM J. Sci.
+/// Comput. 40 (2018) A817).
+enum Factors {
+    Double { lower: Vec<f64>, upper: Vec<f64> },
+    Single { lower: Vec<f32>, upper: Vec<f32> },
+}
+
+/// A factor entry in either precision.
+trait Entry: Copy {
+    fn from_f64(x: f64) -> Self;
+    fn to_f64(self) -> f64;
+}
+
+impl Entry for f64 {
+    fn from_f64(x: f64) -> Self {
+        x
+    }
+    fn to_f64(self) -> f64 {
+        self
+    }
+}
+
+impl Entry for f32 {
+    fn from_f64(x: f64) -> Self {
+        x as f32
+    }
+    fn to_f64(self) -> f64 {
+        f64::from(self)
+    }
+}
+
 impl FrontalLu {
     /// Orders the symmetrised pattern and lays out supernodes and assembly maps; `None` when
-    /// the symbolic analysis fails (the caller then uses a pivoting LU).
-    pub fn new(pattern: &Pattern) -> Option<FrontalLu> {
+    /// the symbolic analysis fails (the caller then uses a pivoting LU). With `single_above`,
+    /// factors of more entries than that are stored in single precision (see [`Factors`]).
+    pub fn new(pattern: &Pattern, single_above: Option<usize>) -> Option<FrontalLu> {
         let n = pattern.n;
         let symmetric = symmetrised(pattern);
         let structure =
@@ -188,8 +228,16 @@ impl FrontalLu {
             stack: Vec::with_capacity(stack_peak(&supernodes, &schedule)),
             supernodes,
             schedule,
-            lower: vec![0.0; lower_len],
-            upper: vec![0.0; upper_len],
+            factors: match single_above {
+                Some(limit) if lower_len + upper_len > limit => Factors::Single {
+                    lower: vec![0.0; lower_len],
+                    upper: vec![0.0; upper_len],
+                },
+                _ => Factors::Double {
+                    lower: vec![0.0; lower_len],
+                    upper: vec![0.0; upper_len],
+                },
+            },
             front: vec![0.0; largest * largest],
             work: vec![0.0; n],
             sum: vec![0.0; largest],
@@ -228,18 +276,13 @@ impl FrontalLu {
                 self.stack.truncate(self.stack.len() - r * r);
             }
             factor_front(front, size, size, width)?;
-            let lower = &mut self.lower[node.lower_at..node.lower_at + size * width];
-            lower.copy_from_slice(&front[..size * width]);
-            let r = size - width;
-            // U's off-diagonal block by rows (each pivot row's r entries together), the layout
-            // the backward solve reads as dot products.
-            let upper = &mut self.upper[node.upper_at..node.upper_at + width * r];
-            for j in 0..r {
-                let column = &front[(width + j) * size..(width + j + 1) * size];
-                for (i, &u) in column[..width].iter().enumerate() {
-                    upper[i * r + j] = u;
-                }
-                self.stack.extend_from_slice(&column[width..]);
+            match &mut self.factors {
+                Factors::Double { lower, upper } => keep(node, front, lower, upper),
+                Factors::Single { lower, upper } => keep(node, front, lower, upper),
+            }
+            for j in width..size {
+                self.stack
+                    .extend_from_slice(&front[j * size + width..(j + 1) * size]);
             }
         }
         self.factored = true;
@@ -255,53 +298,9 @@ impl FrontalLu {
         for (new, &old) in self.order.iter().enumerate() {
             x[new] = b[old];
         }
-        // Forward: supernodes in column order, each its unit lower block, then the rows below
-        // summed densely and scattered once.
-        for node in &self.supernodes {
-            let (size, width, r) = (node.size(), node.width(), node.below.len());
-            let block = &self.lower[node.lower_at..node.lower_at + size * width];
-            let sum = &mut self.sum[..r];
-            sum.fill(0.0);
-            for (k, column) in block.chunks_exact(size).enumerate() {
-                let xk = x[node.first + k];
-                if xk == 0.0 {
-                    continue;
-                }
-                let (pivots, below) = column.split_at(width);
-                for (xi, &l) in x[node.first + k + 1..node.end].iter_mut().zip(&pivots[k + 1..]) {
-                    *xi -= l * xk;
-                }
-                for (s, &l) in sum.iter_mut().zip(below) {
-                    *s += l * xk;
-                }
-            }
-            for (&row, &s) in node.below.iter().zip(sum.iter()) {
-                x[row] -= s;
-            }
-        }
-        // Backward: reverse column order, the rows below gathered and taken off each pivot row
-        // by a dot product, then the upper triangle of the pivot block.
-        for node in self.supernodes.iter().rev() {
-            let (size, width, r) = (node.size(), node.width(), node.below.len());
-            let block = &self.lower[node.lower_at..node.lower_at + size * width];
-            if r > 0 {
-                let gathered = &mut self.sum[..r];
-                for (g, &row) in gathered.iter_mut().zip(&node.below) {
-                    *g = x[row];
-                }
-                let upper = &self.upper[node.upper_at..node.upper_at + width * r];
-                for (xi, row) in x[node.first..node.end].iter_mut().zip(upper.chunks_exact(r)) {
-                    *xi -= dot(row, gathered);
-                }
-            }
-            for k in (0..width).rev() {
-                let column = &block[k * size..k * size + width];
-                let xk = x[node.first + k] / column[k];
-                x[node.first + k] = xk;
-                for (xi, &u) in x[node.first..node.first + k].iter_mut().zip(&column[..k]) {
-                    *xi -= u * xk;
-                }
-            }
+        match &self.factors {
+            Factors::Double { lower, upper } => substitute(&self.supernodes, lower, upper, x, &mut self.sum),
+            Factors::Single { lower, upper } => substitute(&self.supernodes, lower, upper, x, &mut self.sum),
         }
         for (new, &old) in self.order.iter().enumerate() {
             b[old] = x[new];
@@ -310,19 +309,91 @@ impl FrontalLu {
     }
 }
 
+/// Copies a factored front's L and U blocks into the factor stores (U's off-diagonal block by
+/// rows, each pivot row's r entries together: the layout the backward solve reads as dot
+/// products).
+fn keep<T: Entry>(node: &Supernode, front: &[f64], lower: &mut [T], upper: &mut [T]) {
+    let (size, width) = (node.size(), node.width());
+    let r = size - width;
+    let block = &mut lower[node.lower_at..node.lower_at + size * width];
+    block
+        .iter_mut()
+        .zip(front)
+        .for_each(|(l, &f)| *l = T::from_f64(f));
+    let upper = &mut upper[node.upper_at..node.upper_at + width * r];
+    for j in 0..r {
+        let column = &front[(width + j) * size..(width + j) * size + width];
+        for (i, &u) in column.iter().enumerate() {
+            upper[i * r + j] = T::from_f64(u);
+        }
+    }
+}
+
+/// Forward and backward substitution in the reordered numbering, in place in `x`.
+fn substitute<T: Entry>(supernodes: &[Supernode], lower: &[T], upper: &[T], x: &mut [f64], sum: &mut [f64]) {
+    // Forward: supernodes in column order, each its unit lower block, then the rows below
+    // summed densely and scattered once.
+    for node in supernodes {
+        let (size, width, r) = (node.size(), node.width(), node.below.len());
+        let block = &lower[node.lower_at..node.lower_at + size * width];
+        let sum = &mut sum[..r];
+        sum.fill(0.0);
+        for (k, column) in block.chunks_exact(size).enumerate() {
+            let xk = x[node.first + k];
+            if xk == 0.0 {
+                continue;
+            }
+            let (pivots, below) = column.split_at(width);
+            for (xi, &l) in x[node.first + k + 1..node.end].iter_mut().zip(&pivots[k + 1..]) {
+                *xi -= l.to_f64() * xk;
+            }
+            for (s, &l) in sum.iter_mut().zip(below) {
+                *s += l.to_f64() * xk;
+            }
+        }
+        for (&row, &s) in node.below.iter().zip(sum.iter()) {
+            x[row] -= s;
+        }
+    }
+    // Backward: reverse column order, the rows below gathered and taken off each pivot row
+    // by a dot product, then the upper triangle of the pivot block.
+    for node in supernodes.iter().rev() {
+        let (size, width, r) = (node.size(), node.width(), node.below.len());
+        let block = &lower[node.lower_at..node.lower_at + size * width];
+        if r > 0 {
+            let gathered = &mut sum[..r];
+            for (g, &row) in gathered.iter_mut().zip(&node.below) {
+                *g = x[row];
+            }
+            let upper = &upper[node.upper_at..node.upper_at + width * r];
+            for (xi, row) in x[node.first..node.end].iter_mut().zip(upper.chunks_exact(r)) {
+                *xi -= dot(row, gathered);
+            }
+        }
+        for k in (0..width).rev() {
+            let column = &block[k * size..k * size + width];
+            let xk = x[node.first + k] / column[k].to_f64();
+            x[node.first + k] = xk;
+            for (xi, &u) in x[node.first..node.first + k].iter_mut().zip(&column[..k]) {
+                *xi -= u.to_f64() * xk;
+            }
+        }
+    }
+}
+
 /// Σ a_i b_i with four running sums, so that the additions do not wait on one another.
-fn dot(a: &[f64], b: &[f64]) -> f64 {
+fn dot<T: Entry>(a: &[T], b: &[f64]) -> f64 {
     let mut sums = [0.0; 4];
     let (a4, b4) = (a.chunks_exact(4), b.chunks_exact(4));
     let tail: f64 = a4
         .remainder()
         .iter()
         .zip(b4.remainder())
-        .map(|(x, y)| x * y)
+        .map(|(x, y)| x.to_f64() * y)
         .sum();
     for (x, y) in a4.zip(b4) {
         for l in 0..4 {
-            sums[l] += x[l] * y[l];
+            sums[l] += x[l].to_f64() * y[l];
         }
     }
     (sums[0] + sums[1]) + (sums[2] + sums[3]) + tail
