@@ -116,10 +116,11 @@ fn settle_time(trajectory: &Trajectory, i: usize, target: f64, band: f64) -> Opt
     };
     // The crossing lies in (t_k, t_{k+1}]: bisect on that interval's Hermite interpolant.
     let (mut lo, mut hi) = (trajectory.times[k], trajectory.times[k + 1]);
+    let piece = trajectory.piece(k, i);
     // Down to 1e-13 of the time: far below the nine digits any output shows.
     while hi - lo > 1e-13 * hi {
         let mid = 0.5 * (lo + hi);
-        if (trajectory.value_in(k, i, mid) - target).abs() > band {
+        if (piece.at(mid) - target).abs() > band {
             lo = mid;
         } else {
             hi = mid;

@@ -155,9 +155,10 @@ fn refine_maximum(trajectory: &Trajectory, i: usize, k: usize, at_k: f64) -> (f6
     let last = trajectory.times.len() - 1;
     for interval in [k.checked_sub(1), (k < last).then_some(k)].into_iter().flatten() {
         let (t0, t1) = (trajectory.times[interval], trajectory.times[interval + 1]);
+        let piece = trajectory.piece(interval, i);
         for s in 1..SAMPLES {
             let t = t0 + (t1 - t0) * s as f64 / SAMPLES as f64;
-            let c = trajectory.value_in(interval, i, t);
+            let c = piece.at(t);
             if c > best.1 {
                 best = (t, c);
             }

@@ -129,6 +129,31 @@ pub struct Trajectory {
     degrees: Vec<u8>,
 }
 
+/// One species' cubic Hermite interpolant on one step interval.
+#[derive(Debug, Clone, Copy)]
+pub struct Piece {
+    t0: f64,
+    h: f64,
+    y0: f64,
+    y1: f64,
+    /// Slopes at the two ends times the step length.
+    d0: f64,
+    d1: f64,
+}
+
+impl Piece {
+    /// The value at time t (clamped to the interval).
+    pub fn at(&self, t: f64) -> f64 {
+        let s = ((t - self.t0) / self.h).clamp(0.0, 1.0);
+        let s2 = s * s;
+        let s3 = s2 * s;
+        (2.0 * s3 - 3.0 * s2 + 1.0) * self.y0
+            + (s3 - 2.0 * s2 + s) * self.d0
+            + (-2.0 * s3 + 3.0 * s2) * self.y1
+            + (s3 - s2) * self.d1
+    }
+}
+
 /// What a method knows of the slope at a step it adds to the trajectory.
 pub(crate) enum Slope<'a> {
     /// The rate function at the step.
@@ -183,7 +208,13 @@ impl Trajectory {
         if let Some(at) = (k..self.times.len().min(k + 2)).find(|&j| self.times[j] == t) {
             return self.states[at].clone();
         }
-        (0..self.states[0].len()).map(|i| self.hermite(k, i, t)).collect()
+        if self.times.len() < 2 {
+            return self.states[0].clone();
+        }
+        let (start, end) = (self.slope_rule(k), self.slope_rule(k + 1));
+        (0..self.states[0].len())
+            .map(|i| self.piece_with(k, i, &start, &end).at(t))
+            .collect()
     }
 
     /// Concentration of species i at time t.
@@ -203,57 +234,87 @@ impl Trajectory {
         }
     }
 
-    /// Concentration of species i at time t within step interval k (times[k]..=times[k+1]),
-    /// without searching for the interval.
-    pub fn value_in(&self, k: usize, i: usize, t: f64) -> f64 {
-        self.hermite(k, i, t)
+    /// Species i's interpolant on step interval k (times[k]..=times[k+1]), its slopes worked
+    /// out once, for callers that evaluate it many times (bisection, sampling a maximum).
+    pub fn piece(&self, k: usize, i: usize) -> Piece {
+        if self.times.len() < 2 {
+            let y = self.states[0][i];
+            return Piece {
+                t0: self.times[0],
+                h: 1.0,
+                y0: y,
+                y1: y,
+                d0: 0.0,
+                d1: 0.0,
+            };
+        }
+        self.piece_with(k, i, &self.slope_rule(k), &self.slope_rule(k + 1))
+    }
+
+    fn piece_with(&self, k: usize, i: usize, start: &SlopeRule<'_>, end: &SlopeRule<'_>) -> Piece {
+        let h = self.times[k + 1] - self.times[k];
+        Piece {
+            t0: self.times[k],
+            h,
+            y0: self.states[k][i],
+            y1: self.states[k + 1][i],
+            d0: start.of(i) * h,
+            d1: end.of(i) * h,
+        }
     }
 
     fn hermite(&self, k: usize, i: usize, t: f64) -> f64 {
-        if self.times.len() < 2 {
-            return self.states[0][i];
-        }
-        let (t0, t1) = (self.times[k], self.times[k + 1]);
-        let h = t1 - t0;
-        let s = ((t - t0) / h).clamp(0.0, 1.0);
-        let (y0, y1) = (self.states[k][i], self.states[k + 1][i]);
-        let (d0, d1) = (self.slope(k, i) * h, self.slope(k + 1, i) * h);
-        let s2 = s * s;
-        let s3 = s2 * s;
-        (2.0 * s3 - 3.0 * s2 + 1.0) * y0
-            + (s3 - 2.0 * s2 + s) * d0
-            + (-2.0 * s3 + 3.0 * s2) * y1
-            + (s3 - s2) * d1
+        self.piece(k, i).at(t)
     }
 
-    /// dy_i/dt at step n: the stored rate, or the derivative of the polynomial through step n
-    /// and its neighbours (degree/2 steps before it where there are as many), in Newton's
-    /// divided-difference form, differentiated by Horner's rule.
-    fn slope(&self, n: usize, i: usize) -> f64 {
+    /// How to get dy_i/dt at step n for any species i: the stored rate, or the derivative of
+    /// the polynomial through step n and its neighbours (degree/2 steps before it where there
+    /// are as many) as weights on their states. The weights depend on the times alone
+    /// (derivatives of the Lagrange basis polynomials), so every species shares them.
+    fn slope_rule(&self, n: usize) -> SlopeRule<'_> {
         if let Some(rates) = self.rates.get(n) {
-            return f64::from(rates[i]);
+            return SlopeRule::Stored(rates);
         }
         let last = self.times.len() - 1;
         let degree = usize::from(self.degrees[n]).min(last);
         let first = n.saturating_sub(degree / 2).min(last - degree);
-        let times = &self.times[first..=first + degree];
-        let mut table = [0.0; 6];
-        for (j, state) in self.states[first..=first + degree].iter().enumerate() {
-            table[j] = state[i];
+        let x = &self.times[first..=first + degree];
+        let m = n - first;
+        let mut weights = [0.0; 6];
+        for j in 0..=degree {
+            weights[j] = if j == m {
+                (0..=degree)
+                    .filter(|&l| l != m)
+                    .map(|l| 1.0 / (x[m] - x[l]))
+                    .sum()
+            } else {
+                let others = (0..=degree).filter(|&l| l != j && l != m);
+                others.clone().map(|l| x[m] - x[l]).product::<f64>()
+                    / ((x[j] - x[m]) * others.map(|l| x[j] - x[l]).product::<f64>())
+            };
         }
-        // table[j] becomes the divided difference y[t_0 .. t_j].
-        for order in 1..=degree {
-            for j in (order..=degree).rev() {
-                table[j] = (table[j] - table[j - 1]) / (times[j] - times[j - order]);
-            }
+        SlopeRule::Fitted {
+            states: &self.states[first..=first + degree],
+            weights,
         }
-        let at = self.times[n];
-        let (mut value, mut slope) = (table[degree], 0.0);
-        for j in (0..degree).rev() {
-            slope = slope * (at - times[j]) + value;
-            value = value * (at - times[j]) + table[j];
+    }
+}
+
+/// dy_i/dt at one step for every species (see [`Trajectory::slope_rule`]).
+enum SlopeRule<'a> {
+    Stored(&'a [f32]),
+    Fitted {
+        states: &'a [Vec<f64>],
+        weights: [f64; 6],
+    },
+}
+
+impl SlopeRule<'_> {
+    fn of(&self, i: usize) -> f64 {
+        match self {
+            SlopeRule::Stored(rates) => f64::from(rates[i]),
+            SlopeRule::Fitted { states, weights } => states.iter().zip(weights).map(|(y, w)| w * y[i]).sum(),
         }
-        slope
     }
 }
 
