@@ -95,27 +95,48 @@ pub fn modes(network: &Network, c_eq: &[f64]) -> Result<Vec<Mode>, String> {
     if rank == 0 {
         return Ok(Vec::new());
     }
-    let mut b = nalgebra::DMatrix::<f64>::zeros(n, steps.len());
+    let mut b = faer::Mat::<f64>::zeros(n, steps.len());
     for (j, (_, rate, column)) in steps.iter().enumerate() {
         for &(k, v) in column {
             b[(k, j)] = v * rate.sqrt() / c_eq[positive[k]].sqrt();
         }
     }
     // A non-finite entry (rates beyond double range) would make the decomposition fail.
-    if b.iter().any(|x| !x.is_finite()) {
+    if (0..steps.len()).any(|j| b.col(j).iter().any(|x| !x.is_finite())) {
         return Err("equilibrium rates out of floating-point range; relaxation analysis skipped".into());
     }
-    let svd = b.svd(true, true);
-    let (Some(u), Some(v_t)) = (svd.u, svd.v_t) else {
+    // The thin decomposition (faer's blocked bidiagonalisation): only min(n, steps) singular
+    // vectors on each side, where the full one would also build a steps × steps factor. On one
+    // thread: runs of a study already share out the cores.
+    let size = n.min(steps.len());
+    let (mut u, mut v) = (
+        faer::Mat::<f64>::zeros(n, size),
+        faer::Mat::<f64>::zeros(steps.len(), size),
+    );
+    let mut sigma = faer::diag::Diag::<f64>::zeros(size);
+    let thin = faer::linalg::svd::ComputeSvdVectors::Thin;
+    let scratch =
+        faer::linalg::svd::svd_scratch::<f64>(n, steps.len(), thin, thin, faer::Par::Seq, Default::default());
+    let decomposed = faer::linalg::svd::svd(
+        b.as_ref(),
+        sigma.as_mut(),
+        Some(u.as_mut()),
+        Some(v.as_mut()),
+        faer::Par::Seq,
+        faer::dyn_stack::MemStack::new(&mut faer::dyn_stack::MemBuffer::new(scratch)),
+        Default::default(),
+    );
+    if decomposed.is_err() {
         return Err("singular value decomposition failed".into());
-    };
-    let mut order: Vec<usize> = (0..svd.singular_values.len()).collect();
-    order.sort_by(|&x, &y| svd.singular_values[y].total_cmp(&svd.singular_values[x]));
+    }
+    let sigma = sigma.column_vector();
+    let mut order: Vec<usize> = (0..sigma.nrows()).collect();
+    order.sort_by(|&x, &y| sigma[y].total_cmp(&sigma[x]));
     order.truncate(rank);
     let mut modes: Vec<Mode> = order
         .iter()
         .map(|&k| {
-            let sigma = svd.singular_values[k];
+            let sigma = sigma[k];
             let displacement: Vec<f64> = (0..n)
                 .map(|s| (u[(s, k)] * c_eq[positive[s]].sqrt()).abs())
                 .collect();
@@ -123,7 +144,7 @@ pub fn modes(network: &Network, c_eq: &[f64]) -> Result<Vec<Mode>, String> {
             let species = top_shares(displacement.iter().map(|d| d / total), |s| {
                 network.species[positive[s]].name.clone()
             });
-            let steps = top_shares((0..steps.len()).map(|j| v_t[(k, j)].powi(2)), |j| {
+            let steps = top_shares((0..steps.len()).map(|j| v[(j, k)].powi(2)), |j| {
                 steps[j].0.clone()
             });
             Mode {
