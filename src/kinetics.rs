@@ -152,14 +152,20 @@ impl RateModel {
 
     /// Forward and reverse rates of every step, mol/(L s).
     pub fn step_rates(&self, c: &[f64], forward: &mut [f64], reverse: &mut [f64]) {
-        for (j, step) in self.steps.iter().enumerate() {
-            forward[j] = step.kf * product(&step.forward, c, None);
-            reverse[j] = if step.kr == 0.0 {
-                0.0
-            } else {
-                step.kr * product(&step.reverse, c, None)
-            };
+        for j in 0..self.steps.len() {
+            (forward[j], reverse[j]) = self.step_rate(j, c);
         }
+    }
+
+    /// Forward and reverse rate of step j alone (for tables of a few steps of a large network).
+    pub fn step_rate(&self, j: usize, c: &[f64]) -> (f64, f64) {
+        let step = &self.steps[j];
+        let reverse = if step.kr == 0.0 {
+            0.0
+        } else {
+            step.kr * product(&step.reverse, c, None)
+        };
+        (step.kf * product(&step.forward, c, None), reverse)
     }
 
     /// dc/dt.

@@ -116,9 +116,10 @@ pub struct Stats {
 /// integration tolerance). The NDF keeps no slopes: a large network's slopes would double the
 /// trajectory's memory. Its slope at a step is that of the polynomial through the neighbouring
 /// steps, of the degree of the method's order there (at least 2, centred where the steps
-/// allow), as the method's own interpolant is a polynomial through its past steps. Not the rate
-/// function at the stored state either: on a stiff component f amplifies the state's error by
-/// the stiffness, and the interpolant would wander between steps by that much.
+/// allow), as the method's own interpolant is a polynomial through its past steps. Evaluating
+/// the rate function at the stored states instead would not do for the NDF's long steps: on a
+/// stiff component f amplifies the state's error by the stiffness, and the interpolant would
+/// wander between steps by that much.
 #[derive(Debug, Clone, Default)]
 pub struct Trajectory {
     pub times: Vec<f64>,

@@ -102,12 +102,12 @@ pub fn step_rates(result: &RunResult, times: &[f64], steps: &[usize]) -> (Vec<Ve
     let model = RateModel::new(&result.network);
     let m = model.n_steps();
     let (mut forward, mut reverse) = (vec![Vec::new(); m], vec![Vec::new(); m]);
-    let (mut f, mut r) = (vec![0.0; m], vec![0.0; m]);
     for &t in times {
-        model.step_rates(&result.solution.trajectory.state_at(t), &mut f, &mut r);
+        let state = result.solution.trajectory.state_at(t);
         for &j in steps {
-            forward[j].push(f[j]);
-            reverse[j].push(r[j]);
+            let (f, r) = model.step_rate(j, &state);
+            forward[j].push(f);
+            reverse[j].push(r);
         }
     }
     (forward, reverse)
