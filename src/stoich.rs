@@ -79,14 +79,17 @@ pub struct Stoichiometry {
     /// totals: each law touches as few species as it can, so a law among trace species is not
     /// mixed with abundant ones (for holding totals to rounding during integration).
     pub local_conservation: Vec<ConservationLaw>,
-    /// Rank of N: the number of independent reactions.
-    pub rank: usize,
     /// The reactions independent of those before them in the file: a basis of N's columns
-    /// (`rank` of them), on which any change the network can make has unique extents.
+    /// (rank N of them), on which any change the network can make has unique extents.
     pub independent: Vec<usize>,
 }
 
 impl Stoichiometry {
+    /// Rank of N: the number of independent reactions.
+    pub fn rank(&self) -> usize {
+        self.independent.len()
+    }
+
     pub fn new(network: &Network) -> Stoichiometry {
         let n_species = network.n_species();
         let columns: Vec<Vec<(usize, f64)>> = network
@@ -107,7 +110,6 @@ impl Stoichiometry {
             columns,
             conservation: as_laws(polished),
             local_conservation: as_laws(local),
-            rank: independent.len(),
             independent,
         }
     }

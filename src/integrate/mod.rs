@@ -220,7 +220,7 @@ impl Trajectory {
 
     /// Concentration of species i at time t.
     pub fn value_at(&self, i: usize, t: f64) -> f64 {
-        self.hermite(self.interval(t), i, t)
+        self.piece(self.interval(t), i).at(t)
     }
 
     /// Index k with times[k] <= t <= times[k+1].
@@ -262,10 +262,6 @@ impl Trajectory {
             d0: start.of(i) * h,
             d1: end.of(i) * h,
         }
-    }
-
-    fn hermite(&self, k: usize, i: usize, t: f64) -> f64 {
-        self.piece(k, i).at(t)
     }
 
     /// How to get dy_i/dt at step n for any species i: the stored rate, or the derivative of
