@@ -336,23 +336,23 @@ fn substitute<T: Entry>(supernodes: &[Supernode], lower: &[T], upper: &[T], x: &
     for node in supernodes {
         let (size, width, r) = (node.size(), node.width(), node.below.len());
         let block = &lower[node.lower_at..node.lower_at + size * width];
-        let sum = &mut sum[..r];
-        sum.fill(0.0);
         for (k, column) in block.chunks_exact(size).enumerate() {
             let xk = x[node.first + k];
-            if xk == 0.0 {
-                continue;
-            }
-            let (pivots, below) = column.split_at(width);
-            for (xi, &l) in x[node.first + k + 1..node.end].iter_mut().zip(&pivots[k + 1..]) {
-                *xi -= l.to_f64() * xk;
-            }
-            for (s, &l) in sum.iter_mut().zip(below) {
-                *s += l.to_f64() * xk;
+            if xk != 0.0 {
+                for (xi, &l) in x[node.first + k + 1..node.end]
+                    .iter_mut()
+                    .zip(&column[k + 1..width])
+                {
+                    *xi -= l.to_f64() * xk;
+                }
             }
         }
-        for (&row, &s) in node.below.iter().zip(sum.iter()) {
-            x[row] -= s;
+        if r > 0 {
+            let sum = &mut sum[..r];
+            below_product(block, size, width, &x[node.first..node.end], sum);
+            for (&row, &s) in node.below.iter().zip(sum.iter()) {
+                x[row] -= s;
+            }
         }
     }
     // Backward: reverse column order, the rows below gathered and taken off each pivot row
@@ -377,6 +377,30 @@ fn substitute<T: Entry>(supernodes: &[Supernode], lower: &[T], upper: &[T], x: &
             for (xi, &u) in x[node.first..node.first + k].iter_mut().zip(&column[..k]) {
                 *xi -= u.to_f64() * xk;
             }
+        }
+    }
+}
+
+/// `sum` = L₂₁ x for a supernode's column block (`size` rows, the first `width` of them the
+/// pivot block), four columns at a time: each pass over `sum` then does four columns' work for
+/// one load and store of it.
+fn below_product<T: Entry>(block: &[T], size: usize, width: usize, x: &[f64], sum: &mut [f64]) {
+    sum.fill(0.0);
+    let r = size - width;
+    let column = |k: usize| &block[k * size + width..k * size + width + r];
+    let mut k = 0;
+    while k + 4 <= width {
+        let (a, b, c, d) = (column(k), column(k + 1), column(k + 2), column(k + 3));
+        let (xa, xb, xc, xd) = (x[k], x[k + 1], x[k + 2], x[k + 3]);
+        for ((((s, a), b), c), d) in sum.iter_mut().zip(a).zip(b).zip(c).zip(d) {
+            *s += a.to_f64() * xa + b.to_f64() * xb + c.to_f64() * xc + d.to_f64() * xd;
+        }
+        k += 4;
+    }
+    for k in k..width {
+        let (a, xa) = (column(k), x[k]);
+        for (s, a) in sum.iter_mut().zip(a) {
+            *s += a.to_f64() * xa;
         }
     }
 }
