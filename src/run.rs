@@ -37,6 +37,9 @@ pub struct RunSettings {
     pub max_seconds: Option<f64>,
     /// Species that judge time to equilibrium and the hold-time verdict (None: every species).
     pub settle_on: Option<Vec<usize>>,
+    /// Threads the linear algebra of a large network may use (studies run members side by
+    /// side instead, one thread each).
+    pub threads: usize,
 }
 
 /// Units of time and concentration for tables and charts (the JSON summary stays in s and mol/L).
@@ -69,6 +72,7 @@ impl Default for RunSettings {
             output_every: None,
             max_seconds: None,
             settle_on: None,
+            threads: 1,
         }
     }
 }
@@ -258,6 +262,7 @@ fn integration_options(
         target: solved.as_ref().ok().map(|e| e.concentrations.clone()),
         max_time: horizon(relaxation),
         max_seconds: settings.max_seconds,
+        threads: settings.threads,
         ..Options::new(network.n_species())
     }
 }

@@ -102,6 +102,10 @@ struct RunArgs {
     /// reached and says so.
     #[arg(long, value_name = "SECONDS")]
     pub max_seconds: Option<f64>,
+    /// Threads for the linear algebra of large networks (a thousand species and more)
+    /// [default: every core].
+    #[arg(long, value_name = "N")]
+    pub threads: Option<usize>,
     /// Add a tolerance for time to equilibrium, as a fraction of the total change (e.g. 0.05).
     #[arg(long, value_name = "FRACTION")]
     pub tol: Vec<f64>,
@@ -368,6 +372,16 @@ fn run_settings(args: &RunArgs) -> Result<RunSettings, Error> {
         },
         output_every,
         settle_on: None,
+        threads: match args.threads {
+            Some(0) => {
+                return Err(Error::Option {
+                    option: "--threads".into(),
+                    message: "must be at least one thread".into(),
+                })
+            }
+            Some(n) => n,
+            None => crate::ensemble::default_threads(),
+        },
     })
 }
 

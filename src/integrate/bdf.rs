@@ -306,7 +306,7 @@ pub(super) fn integrate(
     let n = model.n_species();
     let pattern = model.pattern().clone();
     let mut iteration = Iteration {
-        solver: LinearSolver::for_newton(pattern.clone(), options.force_dense),
+        solver: LinearSolver::for_newton(pattern.clone(), options.force_dense, options.threads),
         jac: vec![0.0; pattern.nnz()],
         matrix: vec![0.0; pattern.nnz()],
         diagonal: pattern.diagonal_positions(),

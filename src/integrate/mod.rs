@@ -53,6 +53,8 @@ pub struct Options {
     pub max_seconds: Option<f64>,
     /// The integration method (`Auto` chooses by size).
     pub method: Method,
+    /// Threads the linear algebra of a large network may use (1: the calling thread only).
+    pub threads: usize,
 }
 
 impl Options {
@@ -68,6 +70,7 @@ impl Options {
             target: None,
             max_seconds: None,
             method: Method::Auto,
+            threads: 1,
         }
     }
 }

@@ -27,6 +27,7 @@ use faer::sparse::linalg::cholesky::{
 use faer::sparse::linalg::SupernodalThreshold;
 use faer::sparse::SymbolicSparseColMatRef;
 use faer::{Accum, MatMut, Par, Side};
+use rayon::prelude::*;
 
 use super::Pattern;
 
@@ -73,19 +74,53 @@ pub struct FrontalLu {
     /// `order[new] = old`: the elimination order.
     order: Vec<usize>,
     supernodes: Vec<Supernode>,
-    /// Supernodes children first (a postorder of the supernode tree).
-    schedule: Vec<usize>,
+    /// Which thread factors which supernodes.
+    share: Share,
     /// L and U, where the solves read them.
     factors: Factors,
+    /// One per part of `share`, then one for its top.
+    workspaces: Vec<Workspace>,
+    /// The right-hand side before the parts' forward substitutions (merging their changes).
+    before: Vec<f64>,
+    factored: bool,
+}
+
+/// The supernode tree shared between threads: whole subtrees in `parts` (each factored by one
+/// thread, children first), and the supernodes above them in `top`, factored afterwards by the
+/// calling thread. The factors are stored part by part, then the top, so that each thread
+/// writes its own slice. One thread: no parts, everything in `top`.
+struct Share {
+    parts: Vec<Part>,
+    /// The remaining supernodes, children first.
+    top: Vec<usize>,
+    /// Top supernodes in column order (the solves' order).
+    top_columns: Vec<usize>,
+    /// Every supernode in column order (the solves' order on one thread).
+    every: Vec<usize>,
+    /// For a part's subtree root: (part, offset) of its update matrix on that part's stack once
+    /// the part is factored (the update matrices of a part's roots stay there, in order).
+    waiting: Vec<Option<(usize, usize)>>,
+}
+
+struct Part {
+    /// Its supernodes children first, and in column order.
+    schedule: Vec<usize>,
+    columns: Vec<usize>,
+    /// Where its factors end in `lower` and `upper`.
+    lower_end: usize,
+    upper_end: usize,
+}
+
+/// One thread's working storage.
+struct Workspace {
     /// Dense frontal matrix of the supernode being factored (column-major, largest size²).
     front: Vec<f64>,
     /// Update matrices waiting for their parent.
     stack: Vec<f64>,
     /// Reordered right-hand side during a solve.
-    work: Vec<f64>,
+    x: Vec<f64>,
     /// A supernode's contribution to the rows below it during a solve.
     sum: Vec<f64>,
-    factored: bool,
 }
 
 /// The factors: each supernode's m × w column block (L below, U's diagonal block on top) in
@@ -130,8 +165,9 @@ impl Entry for f32 {
 impl FrontalLu {
     /// Orders the symmetrised pattern and lays out supernodes and assembly maps; `None` when
     /// the symbolic analysis fails (the caller then uses a pivoting LU). With `single_above`,
-    /// factors of more entries than that are stored in single precision (see [`Factors`]).
-    pub fn new(pattern: &Pattern, single_above: Option<usize>) -> Option<FrontalLu> {
+    /// factors of more entries than that are stored in single precision (see [`Factors`]); with
+    /// `threads` above one, a large factorisation is shared between that many threads.
+    pub fn new(pattern: &Pattern, single_above: Option<usize>, threads: usize) -> Option<FrontalLu> {
         let n = pattern.n;
         let symmetric = symmetrised(pattern);
         let structure =
@@ -193,7 +229,6 @@ impl FrontalLu {
                 by_owner[owner[i.min(j)]].push((p, i, j));
             }
         }
-        let (mut lower_len, mut upper_len) = (0, 0);
         for s in 0..supernodes.len() {
             let node = &supernodes[s];
             for (k, row) in (node.first..node.end)
@@ -215,19 +250,24 @@ impl FrontalLu {
             for (c, in_parent) in maps {
                 supernodes[c].in_parent = in_parent;
             }
-            let node = &mut supernodes[s];
-            node.entries = entries;
-            node.lower_at = lower_len;
-            node.upper_at = upper_len;
-            lower_len += node.size() * node.width();
-            upper_len += node.width() * node.below.len();
+            supernodes[s].entries = entries;
         }
+        let (share, lower_len, upper_len) = Share::new(&mut supernodes, &parent, &schedule, threads);
         let largest = supernodes.iter().map(Supernode::size).max().unwrap_or(0);
+        let workspace = |stack_capacity| Workspace {
+            front: vec![0.0; largest * largest],
+            stack: Vec::with_capacity(stack_capacity),
+            x: vec![0.0; n],
+            sum: vec![0.0; largest],
+        };
+        let mut workspaces: Vec<Workspace> = share.parts.iter().map(|_| workspace(0)).collect();
+        workspaces.push(workspace(stack_peak(&supernodes, &schedule)));
         Some(FrontalLu {
             order,
-            stack: Vec::with_capacity(stack_peak(&supernodes, &schedule)),
             supernodes,
-            schedule,
+            share,
+            workspaces,
+            before: vec![0.0; n],
             factors: match single_above {
                 Some(limit) if lower_len + upper_len > limit => Factors::Single {
                     lower: vec![0.0; lower_len],
@@ -238,11 +278,14 @@ impl FrontalLu {
                     upper: vec![0.0; upper_len],
                 },
             },
-            front: vec![0.0; largest * largest],
-            work: vec![0.0; n],
-            sum: vec![0.0; largest],
             factored: false,
         })
+    }
+
+    /// How many parts the tree is shared into (its factorisation and solves).
+    #[cfg(test)]
+    pub fn parts(&self) -> usize {
+        self.share.parts.len()
     }
 
     /// The widest supernode: whether a test reaches the blocked factorisation of the pivot block.
@@ -254,37 +297,15 @@ impl FrontalLu {
     /// Factors the matrix with `values` on `pattern` (the pattern this was built from).
     pub fn factor(&mut self, values: &[f64]) -> Result<(), UnstablePivot> {
         self.factored = false;
-        self.stack.clear();
-        for &s in &self.schedule {
-            let node = &self.supernodes[s];
-            let (size, width) = (node.size(), node.width());
-            let front = &mut self.front[..size * size];
-            front.fill(0.0);
-            for &(p, at) in &node.entries {
-                front[at] += values[p];
+        let (supernodes, share, workspaces) = (&self.supernodes, &self.share, &mut self.workspaces[..]);
+        match &mut self.factors {
+            Factors::Double { lower, upper } => {
+                factor_shared(supernodes, share, values, workspaces, lower, upper)
             }
-            for &c in node.children.iter().rev() {
-                let child = &self.supernodes[c];
-                let r = child.below.len();
-                let update = &self.stack[self.stack.len() - r * r..];
-                for (&to_col, column) in child.in_parent.iter().zip(update.chunks_exact(r)) {
-                    let target = &mut front[to_col * size..(to_col + 1) * size];
-                    for (&to_row, &u) in child.in_parent.iter().zip(column) {
-                        target[to_row] += u;
-                    }
-                }
-                self.stack.truncate(self.stack.len() - r * r);
+            Factors::Single { lower, upper } => {
+                factor_shared(supernodes, share, values, workspaces, lower, upper)
             }
-            factor_front(front, size, size, width)?;
-            match &mut self.factors {
-                Factors::Double { lower, upper } => keep(node, front, lower, upper),
-                Factors::Single { lower, upper } => keep(node, front, lower, upper),
-            }
-            for j in width..size {
-                self.stack
-                    .extend_from_slice(&front[j * size + width..(j + 1) * size]);
-            }
-        }
+        }?;
         self.factored = true;
         Ok(())
     }
@@ -294,33 +315,357 @@ impl FrontalLu {
         if !self.factored {
             return false;
         }
-        let x = &mut self.work;
+        let (top, parts) = self.workspaces.split_last_mut().expect("a workspace for the top");
         for (new, &old) in self.order.iter().enumerate() {
-            x[new] = b[old];
+            top.x[new] = b[old];
         }
+        let (supernodes, share, before) = (&self.supernodes, &self.share, &mut self.before);
         match &self.factors {
-            Factors::Double { lower, upper } => substitute(&self.supernodes, lower, upper, x, &mut self.sum),
-            Factors::Single { lower, upper } => substitute(&self.supernodes, lower, upper, x, &mut self.sum),
+            Factors::Double { lower, upper } => {
+                solve_shared(supernodes, share, lower, upper, top, parts, before)
+            }
+            Factors::Single { lower, upper } => {
+                solve_shared(supernodes, share, lower, upper, top, parts, before)
+            }
         }
         for (new, &old) in self.order.iter().enumerate() {
-            b[old] = x[new];
+            b[old] = top.x[new];
         }
         true
     }
 }
 
+impl Share {
+    /// Splits the tree for `threads` threads (or not at all when the factors have fewer than
+    /// [`SHARE_ABOVE`] entries) and lays the factor storage out part by part; returns the share and
+    /// the lengths of `lower` and `upper`.
+    ///
+    /// The split: start from the roots and keep moving the costliest subtree to the top (its
+    /// children join the candidates), packing the candidates onto the threads costliest first;
+    /// keep the split with the least estimated time (top plus the busiest thread). The cost of
+    /// a supernode is its flops plus its frontal matrix's size² (the memory passes).
+    fn new(
+        supernodes: &mut [Supernode],
+        parent: &[Option<usize>],
+        schedule: &[usize],
+        threads: usize,
+    ) -> (Share, usize, usize) {
+        let count = supernodes.len();
+        let cost: Vec<f64> = supernodes
+            .iter()
+            .map(|node| {
+                let (w, r) = (node.width() as f64, node.below.len() as f64);
+                2.0 / 3.0 * w * w * w + 2.0 * w * w * r + 2.0 * w * r * r + 50.0 * (w + r) * (w + r)
+            })
+            .collect();
+        let mut subtree = cost.clone();
+        for &s in schedule {
+            if let Some(p) = parent[s] {
+                subtree[p] += subtree[s];
+            }
+        }
+        let total: f64 = schedule
+            .iter()
+            .filter(|&&s| parent[s].is_none())
+            .map(|&s| subtree[s])
+            .sum();
+        let mut best: (f64, Vec<Vec<usize>>) = (total, Vec::new());
+        let entries: usize = supernodes
+            .iter()
+            .map(|node| node.width() * (node.size() + node.below.len()))
+            .sum();
+        if threads > 1 && entries > SHARE_ABOVE {
+            let mut candidates: Vec<usize> = (0..count).filter(|&s| parent[s].is_none()).collect();
+            let mut top_cost = 0.0;
+            for _ in 0..SPLIT_TRIES {
+                candidates.sort_by(|a, b| subtree[*b].total_cmp(&subtree[*a]));
+                let mut bins: Vec<(f64, Vec<usize>)> = vec![(0.0, Vec::new()); threads];
+                for &c in &candidates {
+                    let lightest = bins
+                        .iter_mut()
+                        .min_by(|a, b| a.0.total_cmp(&b.0))
+                        .expect("at least two bins");
+                    lightest.0 += subtree[c];
+                    lightest.1.push(c);
+                }
+                let time = top_cost + bins.iter().map(|b| b.0).fold(0.0, f64::max);
+                if time < best.0 {
+                    best = (
+                        time,
+                        bins.into_iter()
+                            .map(|b| b.1)
+                            .filter(|roots| !roots.is_empty())
+                            .collect(),
+                    );
+                }
+                if candidates.is_empty() {
+                    break;
+                }
+                let costliest = candidates.remove(0);
+                top_cost += cost[costliest];
+                candidates.extend(&supernodes[costliest].children);
+            }
+        }
+        // Which part each supernode is in (None: the top), from its subtree root's.
+        let mut part_of: Vec<Option<usize>> = vec![None; count];
+        for (k, roots) in best.1.iter().enumerate() {
+            for &root in roots {
+                part_of[root] = Some(k);
+            }
+        }
+        for &s in schedule.iter().rev() {
+            if let (None, Some(p)) = (part_of[s], parent[s]) {
+                part_of[s] = part_of[p];
+            }
+        }
+        // Storage part by part, then the top; each part's roots' update matrices, in order, are
+        // what its stack holds when it is done.
+        let mut length = (0, 0);
+        let place = |node: &mut Supernode, length: &mut (usize, usize)| {
+            node.lower_at = length.0;
+            node.upper_at = length.1;
+            length.0 += node.size() * node.width();
+            length.1 += node.width() * node.below.len();
+        };
+        let mut waiting = vec![None; count];
+        let mut parts = Vec::new();
+        for k in 0..best.1.len() {
+            let part_schedule: Vec<usize> = schedule
+                .iter()
+                .copied()
+                .filter(|&s| part_of[s] == Some(k))
+                .collect();
+            let mut offset = 0;
+            for &s in &part_schedule {
+                place(&mut supernodes[s], &mut length);
+                if parent[s].is_some_and(|p| part_of[p].is_none()) {
+                    waiting[s] = Some((k, offset));
+                    offset += supernodes[s].below.len().pow(2);
+                }
+            }
+            let mut columns = part_schedule.clone();
+            columns.sort_unstable();
+            parts.push(Part {
+                schedule: part_schedule,
+                columns,
+                lower_end: length.0,
+                upper_end: length.1,
+            });
+        }
+        let top: Vec<usize> = schedule
+            .iter()
+            .copied()
+            .filter(|&s| part_of[s].is_none())
+            .collect();
+        for &s in &top {
+            place(&mut supernodes[s], &mut length);
+        }
+        let mut top_columns = top.clone();
+        top_columns.sort_unstable();
+        let share = Share {
+            parts,
+            top,
+            top_columns,
+            every: (0..count).collect(),
+            waiting,
+        };
+        (share, length.0, length.1)
+    }
+}
+
+/// Factors of more entries than this are shared between threads (factorisation and solves).
+/// Below, a solve (two flops per entry) is too short to repay handing half of it over, and a
+/// factorisation shared without its solves leaves the solves reading factors written from
+/// another core's cache: on a 1000-species network (95,000 entries, 2 cores) sharing made the
+/// integration slower, on 5000 species (1.16 million) about 10 % faster.
+const SHARE_ABOVE: usize = 1 << 19;
+
+/// Subtrees moved to the top while looking for the best split.
+const SPLIT_TRIES: usize = 64;
+
+/// The factorisation, each part on its own thread (the first on the calling one), then the top.
+fn factor_shared<T: Entry + Send>(
+    supernodes: &[Supernode],
+    share: &Share,
+    values: &[f64],
+    workspaces: &mut [Workspace],
+    lower: &mut [T],
+    upper: &mut [T],
+) -> Result<(), UnstablePivot> {
+    let (top_workspace, part_workspaces) = workspaces.split_last_mut().expect("a workspace for the top");
+    let mut slices = Vec::with_capacity(share.parts.len());
+    let (mut lower_rest, mut upper_rest, mut at) = (lower, upper, (0, 0));
+    for part in &share.parts {
+        let (l, lr) = lower_rest.split_at_mut(part.lower_end - at.0);
+        let (u, ur) = upper_rest.split_at_mut(part.upper_end - at.1);
+        slices.push((l, u, at));
+        (lower_rest, upper_rest, at) = (lr, ur, (part.lower_end, part.upper_end));
+    }
+    let results: Vec<Result<(), UnstablePivot>> = share
+        .parts
+        .par_iter()
+        .zip(part_workspaces.par_iter_mut())
+        .zip(slices)
+        .map(|((part, workspace), (l, u, at))| {
+            factor_nodes(
+                supernodes,
+                &part.schedule,
+                values,
+                workspace,
+                l,
+                u,
+                at,
+                &[],
+                &share.waiting,
+            )
+        })
+        .collect();
+    results.into_iter().collect::<Result<(), UnstablePivot>>()?;
+    let finished: Vec<&[f64]> = part_workspaces.iter().map(|w| w.stack.as_slice()).collect();
+    factor_nodes(
+        supernodes,
+        &share.top,
+        values,
+        top_workspace,
+        lower_rest,
+        upper_rest,
+        at,
+        &finished,
+        &share.waiting,
+    )
+}
+
+/// The multifrontal factorisation of `nodes` (children first) into factor slices that start at
+/// `at` in `lower` and `upper`: each supernode's front assembled from the matrix and its
+/// children's update matrices (from this workspace's stack, or, for a part's root, from that
+/// part's finished stack), factored, copied out, and its own update matrix pushed.
+#[allow(clippy::too_many_arguments)]
+fn factor_nodes<T: Entry>(
+    supernodes: &[Supernode],
+    nodes: &[usize],
+    values: &[f64],
+    workspace: &mut Workspace,
+    lower: &mut [T],
+    upper: &mut [T],
+    at: (usize, usize),
+    finished: &[&[f64]],
+    waiting: &[Option<(usize, usize)>],
+) -> Result<(), UnstablePivot> {
+    let Workspace { front, stack, .. } = workspace;
+    stack.clear();
+    for &s in nodes {
+        let node = &supernodes[s];
+        let (size, width) = (node.size(), node.width());
+        let front = &mut front[..size * size];
+        front.fill(0.0);
+        for &(p, at) in &node.entries {
+            front[at] += values[p];
+        }
+        for &c in node.children.iter().rev() {
+            let child = &supernodes[c];
+            let r = child.below.len();
+            let (update, own) = match waiting[c].filter(|_| !finished.is_empty()) {
+                Some((part, offset)) => (&finished[part][offset..offset + r * r], false),
+                None => (&stack[stack.len() - r * r..], true),
+            };
+            for (&to_col, column) in child.in_parent.iter().zip(update.chunks_exact(r)) {
+                let target = &mut front[to_col * size..(to_col + 1) * size];
+                for (&to_row, &u) in child.in_parent.iter().zip(column) {
+                    target[to_row] += u;
+                }
+            }
+            if own {
+                stack.truncate(stack.len() - r * r);
+            }
+        }
+        factor_front(front, size, size, width)?;
+        keep(node, front, lower, upper, at);
+        for j in width..size {
+            stack.extend_from_slice(&front[j * size + width..(j + 1) * size]);
+        }
+    }
+    Ok(())
+}
+
+/// Forward and backward substitution of `top.x`, the parts' subtrees on their own threads when
+/// the factors are large: forward, each part on its own copy of x, their changes merged, then
+/// the top; backward, the top first, then each part on its own copy, their columns merged.
+/// A part's supernodes change only their own rows and rows of the top (their ancestors), and
+/// read only their own columns and, going backward, the top's, so the copies never conflict.
+fn solve_shared<T: Entry + Sync>(
+    supernodes: &[Supernode],
+    share: &Share,
+    lower: &[T],
+    upper: &[T],
+    top: &mut Workspace,
+    parts: &mut [Workspace],
+    before: &mut [f64],
+) {
+    if share.parts.is_empty() {
+        forward(supernodes, &share.every, lower, upper, &mut top.x, &mut top.sum);
+        backward(supernodes, &share.every, lower, upper, &mut top.x, &mut top.sum);
+        return;
+    }
+    let run_parts = |parts: &mut [Workspace], x: &[f64], step: Substitution<T>| {
+        share
+            .parts
+            .par_iter()
+            .zip(parts.par_iter_mut())
+            .for_each(|(part, workspace)| {
+                workspace.x.copy_from_slice(x);
+                step(
+                    supernodes,
+                    &part.columns,
+                    lower,
+                    upper,
+                    &mut workspace.x,
+                    &mut workspace.sum,
+                );
+            });
+    };
+    let merge = |parts: &[Workspace], x: &mut [f64], before: &mut [f64]| {
+        before.copy_from_slice(x);
+        for workspace in parts {
+            for ((x, b), p) in x.iter_mut().zip(before.iter()).zip(&workspace.x) {
+                *x += p - b;
+            }
+        }
+    };
+    run_parts(parts, &top.x, forward::<T>);
+    merge(parts, &mut top.x, before);
+    forward(
+        supernodes,
+        &share.top_columns,
+        lower,
+        upper,
+        &mut top.x,
+        &mut top.sum,
+    );
+    backward(
+        supernodes,
+        &share.top_columns,
+        lower,
+        upper,
+        &mut top.x,
+        &mut top.sum,
+    );
+    run_parts(parts, &top.x, backward::<T>);
+    merge(parts, &mut top.x, before);
+}
+
 /// Copies a factored front's L and U blocks into the factor stores (U's off-diagonal block by
 /// rows, each pivot row's r entries together: the layout the backward solve reads as dot
 /// products).
-fn keep<T: Entry>(node: &Supernode, front: &[f64], lower: &mut [T], upper: &mut [T]) {
+fn keep<T: Entry>(node: &Supernode, front: &[f64], lower: &mut [T], upper: &mut [T], at: (usize, usize)) {
     let (size, width) = (node.size(), node.width());
     let r = size - width;
-    let block = &mut lower[node.lower_at..node.lower_at + size * width];
+    let (lower_at, upper_at) = (node.lower_at - at.0, node.upper_at - at.1);
+    let block = &mut lower[lower_at..lower_at + size * width];
     block
         .iter_mut()
         .zip(front)
         .for_each(|(l, &f)| *l = T::from_f64(f));
-    let upper = &mut upper[node.upper_at..node.upper_at + width * r];
+    let upper = &mut upper[upper_at..upper_at + width * r];
     for j in 0..r {
         let column = &front[(width + j) * size..(width + j) * size + width];
         for (i, &u) in column.iter().enumerate() {
@@ -329,11 +674,22 @@ fn keep<T: Entry>(node: &Supernode, front: &[f64], lower: &mut [T], upper: &mut 
     }
 }
 
-/// Forward and backward substitution in the reordered numbering, in place in `x`.
-fn substitute<T: Entry>(supernodes: &[Supernode], lower: &[T], upper: &[T], x: &mut [f64], sum: &mut [f64]) {
-    // Forward: supernodes in column order, each its unit lower block, then the rows below
-    // summed densely and scattered once.
-    for node in supernodes {
+/// A forward or backward substitution over some supernodes (both take the same arguments so
+/// that the shared solve can hand either to its threads).
+type Substitution<T> = fn(&[Supernode], &[usize], &[T], &[T], &mut [f64], &mut [f64]);
+
+/// Forward substitution (unit lower factor) over `nodes`, in column order, in place in `x`:
+/// each supernode's pivot block, then the rows below summed densely and scattered once.
+fn forward<T: Entry>(
+    supernodes: &[Supernode],
+    nodes: &[usize],
+    lower: &[T],
+    _upper: &[T],
+    x: &mut [f64],
+    sum: &mut [f64],
+) {
+    for &s in nodes {
+        let node = &supernodes[s];
         let (size, width, r) = (node.size(), node.width(), node.below.len());
         let block = &lower[node.lower_at..node.lower_at + size * width];
         for (k, column) in block.chunks_exact(size).enumerate() {
@@ -355,9 +711,21 @@ fn substitute<T: Entry>(supernodes: &[Supernode], lower: &[T], upper: &[T], x: &
             }
         }
     }
-    // Backward: reverse column order, the rows below gathered and taken off each pivot row
-    // by a dot product, then the upper triangle of the pivot block.
-    for node in supernodes.iter().rev() {
+}
+
+/// Backward substitution (upper factor) over `nodes`, given in column order and taken in
+/// reverse: the rows below gathered and taken off each pivot row by a dot product, then the
+/// upper triangle of the pivot block.
+fn backward<T: Entry>(
+    supernodes: &[Supernode],
+    nodes: &[usize],
+    lower: &[T],
+    upper: &[T],
+    x: &mut [f64],
+    sum: &mut [f64],
+) {
+    for &s in nodes.iter().rev() {
+        let node = &supernodes[s];
         let (size, width, r) = (node.size(), node.width(), node.below.len());
         let block = &lower[node.lower_at..node.lower_at + size * width];
         if r > 0 {
@@ -397,9 +765,8 @@ fn below_product<T: Entry>(block: &[T], size: usize, width: usize, x: &[f64], su
         }
         k += 4;
     }
-    for k in k..width {
-        let (a, xa) = (column(k), x[k]);
-        for (s, a) in sum.iter_mut().zip(a) {
+    for (k, &xa) in x.iter().enumerate().take(width).skip(k) {
+        for (s, a) in sum.iter_mut().zip(column(k)) {
             *s += a.to_f64() * xa;
         }
     }
