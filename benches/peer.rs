@@ -117,6 +117,7 @@ fn main() {
         let conservation = &stoich.local_conservation;
         let (seconds, solution) =
             median_time(|| integrate(&model, conservation, &initial, &options).unwrap());
+        let peak_mb = peak_memory_mb();
         // The same on every core (the shared factorisation of large networks): wall-clock time,
         // beside the one-thread time that compares with the peers' one-thread solvers.
         let shared_seconds = (cores > 1).then(|| {
