@@ -35,6 +35,7 @@ fn missing_file_and_bad_options_exit_2() {
         ["--rtol", "0"],
         ["--until", "-3"],
         ["--atol", "nan"],
+        ["--threads", "0"],
     ] {
         let out = kinequil(&[
             "run",
