@@ -483,7 +483,7 @@ const SHARE_ABOVE: usize = 1 << 19;
 /// Subtrees moved to the top while looking for the best split.
 const SPLIT_TRIES: usize = 64;
 
-/// The factorisation, each part on its own thread (the first on the calling one), then the top.
+/// The factorisation, the parts side by side (rayon's threads), then the top on this thread.
 fn factor_shared<T: Entry + Send>(
     supernodes: &[Supernode],
     share: &Share,
@@ -501,7 +501,7 @@ fn factor_shared<T: Entry + Send>(
         slices.push((l, u, at));
         (lower_rest, upper_rest, at) = (lr, ur, (part.lower_end, part.upper_end));
     }
-    let results: Vec<Result<(), UnstablePivot>> = share
+    share
         .parts
         .par_iter()
         .zip(part_workspaces.par_iter_mut())
@@ -519,8 +519,7 @@ fn factor_shared<T: Entry + Send>(
                 &share.waiting,
             )
         })
-        .collect();
-    results.into_iter().collect::<Result<(), UnstablePivot>>()?;
+        .collect::<Result<(), UnstablePivot>>()?;
     let finished: Vec<&[f64]> = part_workspaces.iter().map(|w| w.stack.as_slice()).collect();
     factor_nodes(
         supernodes,
