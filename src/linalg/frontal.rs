@@ -27,7 +27,8 @@ use faer::sparse::linalg::cholesky::{
 use faer::sparse::linalg::SupernodalThreshold;
 use faer::sparse::SymbolicSparseColMatRef;
 use faer::{Accum, MatMut, Par, Side};
-use rayon::prelude::*;
+use rayon::ThreadPool;
+use std::sync::Mutex;
 
 use super::Pattern;
 
@@ -80,6 +81,9 @@ pub struct FrontalLu {
     factors: Factors,
     /// One per part of `share`, then one for its top.
     workspaces: Vec<Workspace>,
+    /// One worker per part, so that a part is always factored and solved on the same thread,
+    /// whose core's cache keeps what it wrote (None: no parts, or no threads to be had).
+    workers: Option<ThreadPool>,
     /// The right-hand side before the parts' forward substitutions (merging their changes).
     before: Vec<f64>,
     factored: bool,
@@ -262,10 +266,20 @@ impl FrontalLu {
         };
         let mut workspaces: Vec<Workspace> = share.parts.iter().map(|_| workspace(0)).collect();
         workspaces.push(workspace(stack_peak(&supernodes, &schedule)));
+        let workers = (!share.parts.is_empty())
+            .then(|| {
+                rayon::ThreadPoolBuilder::new()
+                    .num_threads(share.parts.len())
+                    .thread_name(|k| format!("kinequil-lu-{k}"))
+                    .build()
+                    .ok()
+            })
+            .flatten();
         Some(FrontalLu {
             order,
             supernodes,
             share,
+            workers,
             workspaces,
             before: vec![0.0; n],
             factors: match single_above {
@@ -298,12 +312,13 @@ impl FrontalLu {
     pub fn factor(&mut self, values: &[f64]) -> Result<(), UnstablePivot> {
         self.factored = false;
         let (supernodes, share, workspaces) = (&self.supernodes, &self.share, &mut self.workspaces[..]);
+        let workers = self.workers.as_ref();
         match &mut self.factors {
             Factors::Double { lower, upper } => {
-                factor_shared(supernodes, share, values, workspaces, lower, upper)
+                factor_shared(supernodes, share, workers, values, workspaces, lower, upper)
             }
             Factors::Single { lower, upper } => {
-                factor_shared(supernodes, share, values, workspaces, lower, upper)
+                factor_shared(supernodes, share, workers, values, workspaces, lower, upper)
             }
         }?;
         self.factored = true;
@@ -320,12 +335,13 @@ impl FrontalLu {
             top.x[new] = b[old];
         }
         let (supernodes, share, before) = (&self.supernodes, &self.share, &mut self.before);
+        let workers = self.workers.as_ref();
         match &self.factors {
             Factors::Double { lower, upper } => {
-                solve_shared(supernodes, share, lower, upper, top, parts, before)
+                solve_shared(supernodes, share, workers, lower, upper, top, parts, before)
             }
             Factors::Single { lower, upper } => {
-                solve_shared(supernodes, share, lower, upper, top, parts, before)
+                solve_shared(supernodes, share, workers, lower, upper, top, parts, before)
             }
         }
         for (new, &old) in self.order.iter().enumerate() {
@@ -483,10 +499,11 @@ const SHARE_ABOVE: usize = 1 << 19;
 /// Subtrees moved to the top while looking for the best split.
 const SPLIT_TRIES: usize = 64;
 
-/// The factorisation, the parts side by side (rayon's threads), then the top on this thread.
+/// The factorisation, the parts side by side on their workers, then the top on this thread.
 fn factor_shared<T: Entry + Send>(
     supernodes: &[Supernode],
     share: &Share,
+    workers: Option<&ThreadPool>,
     values: &[f64],
     workspaces: &mut [Workspace],
     lower: &mut [T],
@@ -501,25 +518,27 @@ fn factor_shared<T: Entry + Send>(
         slices.push((l, u, at));
         (lower_rest, upper_rest, at) = (lr, ur, (part.lower_end, part.upper_end));
     }
-    share
+    let jobs: Vec<_> = share
         .parts
-        .par_iter()
-        .zip(part_workspaces.par_iter_mut())
+        .iter()
+        .zip(part_workspaces.iter_mut())
         .zip(slices)
-        .map(|((part, workspace), (l, u, at))| {
-            factor_nodes(
-                supernodes,
-                &part.schedule,
-                values,
-                workspace,
-                l,
-                u,
-                at,
-                &[],
-                &share.waiting,
-            )
-        })
-        .collect::<Result<(), UnstablePivot>>()?;
+        .collect();
+    on_workers(workers, jobs, |((part, workspace), (l, u, at))| {
+        factor_nodes(
+            supernodes,
+            &part.schedule,
+            values,
+            workspace,
+            l,
+            u,
+            at,
+            &[],
+            &share.waiting,
+        )
+    })
+    .into_iter()
+    .collect::<Result<(), UnstablePivot>>()?;
     let finished: Vec<&[f64]> = part_workspaces.iter().map(|w| w.stack.as_slice()).collect();
     factor_nodes(
         supernodes,
@@ -591,9 +610,11 @@ fn factor_nodes<T: Entry>(
 /// the top; backward, the top first, then each part on its own copy, their columns merged.
 /// A part's supernodes change only their own rows and rows of the top (their ancestors), and
 /// read only their own columns and, going backward, the top's, so the copies never conflict.
+#[allow(clippy::too_many_arguments)]
 fn solve_shared<T: Entry + Sync>(
     supernodes: &[Supernode],
     share: &Share,
+    workers: Option<&ThreadPool>,
     lower: &[T],
     upper: &[T],
     top: &mut Workspace,
@@ -606,21 +627,18 @@ fn solve_shared<T: Entry + Sync>(
         return;
     }
     let run_parts = |parts: &mut [Workspace], x: &[f64], step: Substitution<T>| {
-        share
-            .parts
-            .par_iter()
-            .zip(parts.par_iter_mut())
-            .for_each(|(part, workspace)| {
-                workspace.x.copy_from_slice(x);
-                step(
-                    supernodes,
-                    &part.columns,
-                    lower,
-                    upper,
-                    &mut workspace.x,
-                    &mut workspace.sum,
-                );
-            });
+        let jobs: Vec<_> = share.parts.iter().zip(parts.iter_mut()).collect();
+        on_workers(workers, jobs, |(part, workspace)| {
+            workspace.x.copy_from_slice(x);
+            step(
+                supernodes,
+                &part.columns,
+                lower,
+                upper,
+                &mut workspace.x,
+                &mut workspace.sum,
+            );
+        });
     };
     let merge = |parts: &[Workspace], x: &mut [f64], before: &mut [f64]| {
         before.copy_from_slice(x);
@@ -650,6 +668,29 @@ fn solve_shared<T: Entry + Sync>(
     );
     run_parts(parts, &top.x, backward::<T>);
     merge(parts, &mut top.x, before);
+}
+
+/// `job` on each of `jobs`, job k on worker k of `workers` (as many workers as jobs; the
+/// calling thread waits), or one after another on this thread when there are no workers.
+fn on_workers<J: Send, R: Send>(
+    workers: Option<&ThreadPool>,
+    jobs: Vec<J>,
+    job: impl Fn(J) -> R + Sync,
+) -> Vec<R> {
+    match workers {
+        Some(pool) => {
+            let slots: Vec<Mutex<Option<J>>> = jobs.into_iter().map(|j| Mutex::new(Some(j))).collect();
+            pool.broadcast(|context| {
+                let mine = slots[context.index()]
+                    .lock()
+                    .unwrap_or_else(|poisoned| poisoned.into_inner())
+                    .take()
+                    .expect("one job per worker");
+                job(mine)
+            })
+        }
+        None => jobs.into_iter().map(job).collect(),
+    }
 }
 
 /// Copies a factored front's L and U blocks into the factor stores (U's off-diagonal block by
