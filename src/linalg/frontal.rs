@@ -97,10 +97,9 @@ struct Share {
     parts: Vec<Part>,
     /// The remaining supernodes, children first.
     top: Vec<usize>,
-    /// Top supernodes in column order (the solves' order).
+    /// Top supernodes in column order (the solves' order; every supernode when there are no
+    /// parts).
     top_columns: Vec<usize>,
-    /// Every supernode in column order (the solves' order on one thread).
-    every: Vec<usize>,
     /// For a part's subtree root: (part, offset) of its update matrix on that part's stack once
     /// the part is factored (the update matrices of a part's roots stay there, in order).
     waiting: Vec<Option<(usize, usize)>>,
@@ -482,7 +481,6 @@ impl Share {
             parts,
             top,
             top_columns,
-            every: (0..count).collect(),
             waiting,
         };
         (share, length.0, length.1)
@@ -582,7 +580,8 @@ fn factor_nodes<T: Entry>(
         for &c in node.children.iter().rev() {
             let child = &supernodes[c];
             let r = child.below.len();
-            let (update, own) = match waiting[c].filter(|_| !finished.is_empty()) {
+            // Only a part's root waits elsewhere, and only the top has part roots as children.
+            let (update, own) = match waiting[c] {
                 Some((part, offset)) => (&finished[part][offset..offset + r * r], false),
                 None => (&stack[stack.len() - r * r..], true),
             };
@@ -622,8 +621,22 @@ fn solve_shared<T: Entry + Sync>(
     before: &mut [f64],
 ) {
     if share.parts.is_empty() {
-        forward(supernodes, &share.every, lower, upper, &mut top.x, &mut top.sum);
-        backward(supernodes, &share.every, lower, upper, &mut top.x, &mut top.sum);
+        forward(
+            supernodes,
+            &share.top_columns,
+            lower,
+            upper,
+            &mut top.x,
+            &mut top.sum,
+        );
+        backward(
+            supernodes,
+            &share.top_columns,
+            lower,
+            upper,
+            &mut top.x,
+            &mut top.sum,
+        );
         return;
     }
     let run_parts = |parts: &mut [Workspace], x: &[f64], step: Substitution<T>| {
