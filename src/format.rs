@@ -130,9 +130,10 @@ pub fn count(n: usize, noun: &str) -> String {
 /// millions of numbers, and the standard library's exact decimal conversion falls back to
 /// big-number arithmetic on many of them.
 ///
-/// The mantissa is scaled to ten digits by one or two products with exact powers of ten (error
-/// under 4e-6 of its last digit) and rounded; where it lies within 1e-4 of a rounding tie, and for
-/// zero, non-finite and very large or small values, the standard conversion decides.
+/// The decade comes from the binary exponent; the mantissa is scaled to ten digits by one or two
+/// products with exact powers of ten (error under 4e-6 of its last digit) and rounded; where it
+/// lies within 1e-4 of a rounding tie, and for zero, non-finite and very large or small values,
+/// the standard conversion decides.
 pub fn push_scientific(out: &mut String, x: f64) {
     use std::fmt::Write;
     /// 10^0 ..= 10^22, every one exact in double precision.
@@ -150,8 +151,11 @@ pub fn push_scientific(out: &mut String, x: f64) {
         }
     };
     let a = x.abs();
+    // floor(log10 a) from the binary exponent e (2^e ≤ a < 2^(e+1)): floor(e log10 2) is the
+    // decade or one below it, which the rescaling below corrects; no logarithm needed.
+    let exponent = ((a.to_bits() >> 52) & 0x7ff) as i32 - 1023;
     let decade = if a.is_finite() && a != 0.0 {
-        a.log10().floor() as i32
+        (f64::from(exponent) * std::f64::consts::LOG10_2).floor() as i32
     } else {
         i32::MAX
     };
@@ -160,7 +164,7 @@ pub fn push_scientific(out: &mut String, x: f64) {
         return;
     }
     let (mut decade, mut m) = (decade, scaled(a, decade - 9));
-    // log10 may land one decade off next to a power of ten.
+    // The estimate may be one decade low; rounding in the scaling may cross a power of ten.
     if m >= 1e10 {
         decade += 1;
         m = scaled(a, decade - 9);
@@ -177,24 +181,34 @@ pub fn push_scientific(out: &mut String, x: f64) {
         digits = 1_000_000_000;
         decade += 1;
     }
-    let mut text = [b'.'; 11];
+    // Sign, ten digits with the point after the first, 'e', sign and up to two exponent digits.
+    let mut text = [0u8; 16];
+    let mut len = 0;
+    if x < 0.0 {
+        text[0] = b'-';
+        len = 1;
+    }
+    let mantissa = &mut text[len..len + 11];
+    mantissa[1] = b'.';
     for k in (0..11).rev().filter(|&k| k != 1) {
-        text[k] = b'0' + (digits % 10) as u8;
+        mantissa[k] = b'0' + (digits % 10) as u8;
         digits /= 10;
     }
-    if x < 0.0 {
-        out.push('-');
-    }
-    out.extend(text.iter().map(|&b| b as char));
-    out.push('e');
+    len += 11;
+    text[len] = b'e';
+    len += 1;
     if decade < 0 {
-        out.push('-');
+        text[len] = b'-';
+        len += 1;
     }
     let decade = decade.unsigned_abs();
     if decade >= 10 {
-        out.push(char::from(b'0' + (decade / 10) as u8));
+        text[len] = b'0' + (decade / 10) as u8;
+        len += 1;
     }
-    out.push(char::from(b'0' + (decade % 10) as u8));
+    text[len] = b'0' + (decade % 10) as u8;
+    len += 1;
+    out.push_str(std::str::from_utf8(&text[..len]).expect("ASCII digits"));
 }
 
 #[cfg(test)]

@@ -150,10 +150,10 @@ impl RateModel {
         &self.pattern
     }
 
-    /// Forward and reverse rates of every step, mol/(L s).
-    pub fn step_rates(&self, c: &[f64], forward: &mut [f64], reverse: &mut [f64]) {
-        for j in 0..self.steps.len() {
-            (forward[j], reverse[j]) = self.step_rate(j, c);
+    /// Forward rate of every step, mol/(L s) (what ranks the steps for tables and charts).
+    pub fn forward_rates(&self, c: &[f64], forward: &mut [f64]) {
+        for (rate, step) in forward.iter_mut().zip(&self.steps) {
+            *rate = step.kf * product(&step.forward, c, None);
         }
     }
 

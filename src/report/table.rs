@@ -45,7 +45,6 @@ pub fn times_csv(result: &RunResult) -> String {
 fn write_state_table(result: &RunResult, times: &[f64], out: &mut dyn std::io::Write) -> std::io::Result<()> {
     let units = result.settings.units;
     let (t_scale, c_scale) = (units.time.seconds(), units.concentration.mol_per_l());
-    let mut writer = csv::Writer::from_writer(out);
     let mut header = vec![format!("time [{}]", units.time.symbol())];
     header.extend(
         result
@@ -58,25 +57,23 @@ fn write_state_table(result: &RunResult, times: &[f64], out: &mut dyn std::io::W
         header.extend(partial.iter().map(|(name, _)| format!("p({name}) [bar]")));
         header.push("p_total [bar]".into());
     }
-    writer.write_record(&header).map_err(std::io::Error::other)?;
-    let mut fields = Fields::default();
+    write_header(&header, out)?;
+    let mut row = Row::default();
     for &t in times {
         let state = result.solution.trajectory.state_at(t);
-        fields.number(&mut writer, t / t_scale)?;
+        row.number(t / t_scale);
         for c in &state {
-            fields.number(&mut writer, c / c_scale)?;
+            row.number(c / c_scale);
         }
         if let Some((partial, total)) = result.pressures_bar(&state) {
             for (_, p) in &partial {
-                fields.number(&mut writer, *p)?;
+                row.number(*p);
             }
-            fields.number(&mut writer, total)?;
+            row.number(total);
         }
-        writer
-            .write_record(None::<&[u8]>)
-            .map_err(std::io::Error::other)?;
+        row.write(out)?;
     }
-    writer.flush()
+    out.flush()
 }
 
 /// Most steps in `rates.csv`: beyond this, the busiest steps (largest peak forward rate) are
@@ -88,9 +85,9 @@ pub const MAX_RATE_STEPS: usize = 100;
 pub fn peak_forward_rates(result: &RunResult, times: &[f64]) -> Vec<f64> {
     let model = RateModel::new(&result.network);
     let m = model.n_steps();
-    let (mut f, mut r, mut peak) = (vec![0.0; m], vec![0.0; m], vec![0.0_f64; m]);
+    let (mut f, mut peak) = (vec![0.0; m], vec![0.0_f64; m]);
     for &t in times {
-        model.step_rates(&result.solution.trajectory.state_at(t), &mut f, &mut r);
+        model.forward_rates(&result.solution.trajectory.state_at(t), &mut f);
         peak.iter_mut().zip(&f).for_each(|(p, v)| *p = p.max(*v));
     }
     peak
@@ -130,7 +127,6 @@ pub fn write_rates_csv(result: &RunResult, out: &mut dyn std::io::Write) -> std:
     let steps = busiest_steps(&peak_forward_rates(result, &times), MAX_RATE_STEPS, |_| true);
     let (forward, reverse) = step_rates(result, &times, &steps);
     let t_unit = result.settings.units.time;
-    let mut writer = csv::Writer::from_writer(out);
     let mut header = vec![format!("time [{}]", t_unit.symbol())];
     for j in steps.iter().map(|j| j + 1) {
         header.push(format!("step {j} forward [mol/(L s)]"));
@@ -138,40 +134,65 @@ pub fn write_rates_csv(result: &RunResult, out: &mut dyn std::io::Write) -> std:
         header.push(format!("step {j} net [mol/(L s)]"));
         header.push(format!("step {j} Q/K"));
     }
-    writer.write_record(&header).map_err(std::io::Error::other)?;
-    let mut fields = Fields::default();
+    write_header(&header, out)?;
+    let mut row = Row::default();
     for (k, t) in times.iter().enumerate() {
-        fields.number(&mut writer, t / t_unit.seconds())?;
+        row.number(t / t_unit.seconds());
         for &j in &steps {
             let (f, r) = (forward[j][k], reverse[j][k]);
-            fields.number(&mut writer, f)?;
-            fields.number(&mut writer, r)?;
-            fields.number(&mut writer, f - r)?;
+            row.number(f);
+            row.number(r);
+            row.number(f - r);
             if result.network.reactions[j].reversible && f > 0.0 {
-                fields.number(&mut writer, r / f)?;
+                row.number(r / f);
             } else {
-                writer.write_field("").map_err(std::io::Error::other)?;
+                row.empty();
             }
         }
-        writer
-            .write_record(None::<&[u8]>)
-            .map_err(std::io::Error::other)?;
+        row.write(out)?;
     }
+    out.flush()
+}
+
+/// The header line, quoted where a name needs it.
+fn write_header(header: &[String], out: &mut dyn std::io::Write) -> std::io::Result<()> {
+    let mut writer = csv::Writer::from_writer(out);
+    writer.write_record(header).map_err(std::io::Error::other)?;
     writer.flush()
 }
 
-/// Writes numbers as CSV fields with ten significant digits, formatted in one reused buffer: a
-/// large network's tables have millions of fields.
+/// One CSV line of numbers with ten significant digits, built in a reused buffer and written
+/// whole: numbers never need quoting, so the line skips the CSV writer's per-byte checks (a large
+/// network's tables have millions of fields).
 #[derive(Default)]
-struct Fields {
-    buffer: String,
+struct Row {
+    line: String,
+    fields: usize,
 }
 
-impl Fields {
-    fn number<W: std::io::Write>(&mut self, writer: &mut csv::Writer<W>, value: f64) -> std::io::Result<()> {
-        self.buffer.clear();
-        crate::format::push_scientific(&mut self.buffer, value);
-        writer.write_field(&self.buffer).map_err(std::io::Error::other)
+impl Row {
+    fn number(&mut self, value: f64) {
+        self.separate();
+        crate::format::push_scientific(&mut self.line, value);
+    }
+
+    fn empty(&mut self) {
+        self.separate();
+    }
+
+    fn separate(&mut self) {
+        if self.fields > 0 {
+            self.line.push(',');
+        }
+        self.fields += 1;
+    }
+
+    fn write(&mut self, out: &mut dyn std::io::Write) -> std::io::Result<()> {
+        self.line.push('\n');
+        out.write_all(self.line.as_bytes())?;
+        self.line.clear();
+        self.fields = 0;
+        Ok(())
     }
 }
 
