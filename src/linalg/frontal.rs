@@ -295,6 +295,14 @@ impl FrontalLu {
         })
     }
 
+    /// Entries of L and U together (what a factorisation writes and a solve reads).
+    pub fn entries(&self) -> usize {
+        match &self.factors {
+            Factors::Double { lower, upper } => lower.len() + upper.len(),
+            Factors::Single { lower, upper } => lower.len() + upper.len(),
+        }
+    }
+
     /// How many parts the tree is shared into (its factorisation and solves).
     #[cfg(test)]
     pub fn parts(&self) -> usize {

@@ -143,6 +143,16 @@ impl LinearSolver {
         LinearSolver { pattern, kind }
     }
 
+    /// Entries of the factors: n² when dense, L and U's when sparse (the pivoting fallback's
+    /// fill is not known ahead, so its matrix's count stands in).
+    pub fn factor_entries(&self) -> usize {
+        match &self.kind {
+            Kind::Dense(_) => self.pattern.n * self.pattern.n,
+            Kind::Frontal(lu) => lu.entries(),
+            Kind::Pivoting(_) => self.pattern.nnz(),
+        }
+    }
+
     pub fn is_sparse(&self) -> bool {
         !matches!(self.kind, Kind::Dense(_))
     }
