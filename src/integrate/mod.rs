@@ -468,9 +468,10 @@ fn next_move(
     Move::Step
 }
 
-/// The weighted RMS norm of the error estimate, and the most negative new concentration in
-/// units of its tolerance.
-fn error_norm(estimate: &[f64], y: &[f64], y_new: &[f64], options: &Options) -> (f64, f64) {
+/// The weighted RMS norm of the error estimate, the most negative new concentration in units of
+/// its tolerance, and how far that lies below the most negative at the step's start (the
+/// rejection test: from a start already at the limit, a fixed limit would refuse every step size).
+fn error_norm(estimate: &[f64], y: &[f64], y_new: &[f64], options: &Options) -> (f64, f64, f64) {
     let n = y.len();
     let scale = |i: usize| options.atol[i] + options.rtol * y[i].abs().max(y_new[i].abs());
     let err = estimate
@@ -480,7 +481,8 @@ fn error_norm(estimate: &[f64], y: &[f64], y_new: &[f64], options: &Options) -> 
         .sum::<f64>();
     let err = (err / n as f64).sqrt();
     let negative = (0..n).map(|i| y_new[i] / scale(i)).fold(0.0_f64, f64::min);
-    (err, negative)
+    let start = (0..n).map(|i| y[i] / scale(i)).fold(0.0_f64, f64::min);
+    (err, negative, negative - start)
 }
 
 /// Whether equilibrium is reached after an accepted step from `before` to `y` (see the module

@@ -120,11 +120,11 @@ pub(super) fn integrate(
 
         // One RODAS4 step from (t, y) with step h, kept or retried smaller.
         let computed = rodas.step(model, &mut solver, &y, &f, h, &mut y_new, &mut stats);
-        let (err, negative) = match computed {
+        let (err, negative, deeper) = match computed {
             true => error_norm(&rodas.u[5], &y, &y_new, options),
-            false => (f64::NAN, 0.0), // singular iteration matrix: retry smaller
+            false => (f64::NAN, 0.0, 0.0), // singular iteration matrix: retry smaller
         };
-        if let Some(shrink) = rejection(err, negative, &mut stats) {
+        if let Some(shrink) = rejection(err, deeper, &mut stats) {
             h *= shrink;
             rejected_last = true;
             continue;
@@ -170,9 +170,10 @@ pub(super) fn integrate(
 }
 
 /// The factor to shrink the step by when a computed step is not kept (error above tolerance,
-/// not finite, or a concentration far below zero), counting the rejection; `None` keeps it.
-fn rejection(err: f64, negative: f64, stats: &mut Stats) -> Option<f64> {
-    if err <= 1.0 && negative >= -1.0 {
+/// not finite, or a concentration taken more than its tolerance further below zero than at the
+/// step's start: `deeper` < −1), counting the rejection; `None` keeps it.
+fn rejection(err: f64, deeper: f64, stats: &mut Stats) -> Option<f64> {
+    if err <= 1.0 && deeper >= -1.0 {
         return None;
     }
     stats.rejected_steps += 1;
@@ -267,4 +268,38 @@ impl Rodas4 {
 /// Step-size factor from the error norm for an order-3 embedded estimate.
 fn factor(err: f64) -> f64 {
     (SAFETY * err.max(1e-10).powf(-0.25)).clamp(MAX_SHRINK, MAX_GROWTH)
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    /// The negativity guard measures how far a step goes below zero from where it started (our
+    /// rule): a start already past −1 tolerance, which a fixed limit refused at every step size
+    /// (a step-size collapse), is kept while the step stays within one tolerance of it; from a
+    /// non-negative start the limit is −1 as before. Values are in units of atol (1e-10 here).
+    #[test]
+    fn negativity_is_measured_from_the_step_s_start() {
+        let options = Options {
+            atol: vec![1e-10],
+            ..Options::new(1)
+        };
+        let estimate = [0.0];
+        let check = |y: f64, y_new: f64| {
+            let (err, _, deeper) = error_norm(&estimate, &[y], &[y_new], &options);
+            rejection(err, deeper, &mut Stats::default())
+        };
+        assert_eq!(
+            check(-1.5e-10, -1.6e-10),
+            None,
+            "stays near a start past the limit"
+        );
+        assert_eq!(
+            check(-1.5e-10, -2.7e-10),
+            Some(0.25),
+            "goes over one tolerance deeper"
+        );
+        assert_eq!(check(0.0, -0.9e-10), None, "within the limit from zero");
+        assert_eq!(check(0.0, -1.1e-10), Some(0.25), "past the limit from zero");
+    }
 }
