@@ -45,12 +45,13 @@ const MAX_FACTOR: f64 = 10.0;
 const MIN_GROWTH: f64 = 1.5;
 /// Refactor when h/α has moved by this factor less one, up or down, from the factored value
 /// (CVODE's 0.3, Hindmarsh et al. 2005; measured as a ratio either way up, so that a limit of 1
-/// or more still refactors when the step shrinks), or by [`REFACTOR_RATIO_LARGE`] when the factors hold
-/// more than [`LARGE_FACTORS`] entries: a factorisation then costs as much as some twenty Newton
-/// iterations (syn_N5000: 37 ms against 1.6 ms), and the stale matrix's slower convergence is
-/// the cheaper side. Measured on syn_N5000 (1.16 million entries): 0.3 -> 0.6 took the
-/// factorisations from 146 to 102 for 1502 -> 1528 rate evaluations; 1.0 and 1.5 gave 104 and 88
-/// for 1648 and 1660. On syn_N100 (3,000 entries) 0.6 cost 15 % more rate evaluations.
+/// or more still refactors when the step shrinks), or by [`REFACTOR_RATIO_LARGE`] when the
+/// factors hold more than [`LARGE_FACTORS`] entries: a factorisation then costs as much as some
+/// twenty Newton iterations (syn_N5000: 37 ms against 1.6 ms), and the stale matrix's slower
+/// convergence is the cheaper side. Measured on syn_N5000 (1.16 million entries): 0.3 -> 0.6
+/// took the factorisations from 146 to 102 for 1502 -> 1528 rate evaluations; 1.0 and 1.5 gave
+/// 104 and 88 for 1648 and 1660. On syn_N100 (3,000 entries) 0.6 cost 15 % more rate
+/// evaluations.
 const REFACTOR_RATIO: f64 = 0.3;
 const REFACTOR_RATIO_LARGE: f64 = 0.6;
 const LARGE_FACTORS: usize = 1 << 19;
