@@ -142,6 +142,11 @@ fn norm(v: &[f64], scale: &[f64]) -> f64 {
     (sum / v.len().max(1) as f64).sqrt()
 }
 
+/// The most negative entry of y in units of its scale (0 when none is negative).
+fn most_negative(y: &[f64], scale: &[f64]) -> f64 {
+    y.iter().zip(scale).map(|(y, s)| y / s).fold(0.0_f64, f64::min)
+}
+
 /// The iteration matrix I − cJ, its factorisation and the Jacobian it came from.
 struct Iteration {
     solver: LinearSolver,
@@ -456,22 +461,13 @@ pub(super) fn integrate(
             work.error[i] = coefficients.error[order] * work.d[i];
         }
         let error_norm = norm(&work.error, &work.scale);
-        let negative = work
-            .y
-            .iter()
-            .zip(&work.scale)
-            .map(|(y, s)| y / s)
-            .fold(0.0_f64, f64::min);
+        let negative = most_negative(&work.y, &work.scale);
         // A step is refused for going negative when it takes a species more than one tolerance
         // unit further below zero than the state it started from (from a non-negative start:
         // below −1). A fixed limit of −1 refused every step size down to nothing once a start
         // sat at the limit, as the solution kept drifting by rounding (seen on syn_N1000 with
         // a looser refactorisation rule).
-        let start_negative = y
-            .iter()
-            .zip(&work.scale)
-            .map(|(y, s)| y / s)
-            .fold(0.0_f64, f64::min);
+        let start_negative = most_negative(&y, &work.scale);
         if error_norm > 1.0 || negative < start_negative - 1.0 {
             stats.rejected_steps += 1;
             let factor = if error_norm > 1.0 {
