@@ -243,34 +243,49 @@ fn largest_changes(result: &RunResult) -> Vec<usize> {
 /// more than 1 % of its range from its final value.
 fn active_span(result: &RunResult, times: &[f64]) -> (f64, f64) {
     // Two passes over the times, one state at a time (a large network's states at every
-    // output time would not fit in a modest memory): the ranges first, then the span.
+    // output time would not fit in a modest memory), shared between threads: the ranges first,
+    // then the span.
     let trajectory = &result.solution.trajectory;
+    let n = result.network.n_species();
     let first = trajectory.state_at(times[0]);
     let last = trajectory.state_at(times[times.len() - 1]);
-    let (mut low, mut high) = (first.clone(), first.clone());
-    for &t in times {
-        for (i, c) in trajectory.state_at(t).into_iter().enumerate() {
-            low[i] = low[i].min(c);
-            high[i] = high[i].max(c);
-        }
-    }
+    let (low, high) = trajectory.fold_states(
+        times,
+        || (vec![f64::INFINITY; n], vec![f64::NEG_INFINITY; n]),
+        |(low, high), _, state| {
+            for (i, &c) in state.iter().enumerate() {
+                low[i] = low[i].min(c);
+                high[i] = high[i].max(c);
+            }
+        },
+        |(mut low, mut high), (other_low, other_high)| {
+            low.iter_mut().zip(&other_low).for_each(|(a, b)| *a = a.min(*b));
+            high.iter_mut().zip(&other_high).for_each(|(a, b)| *a = a.max(*b));
+            (low, high)
+        },
+    );
     let range: Vec<f64> = high.iter().zip(&low).map(|(h, l)| h - l).collect();
     let away = |s: &[f64], from: &[f64]| {
         (0..s.len()).any(|i| range[i] > 0.0 && (s[i] - from[i]).abs() > 0.01 * range[i])
     };
-    let mut start = None;
-    let mut last_unsettled = None;
-    for (k, &t) in times.iter().enumerate() {
-        let state = trajectory.state_at(t);
-        if start.is_none() && away(&state, &first) {
-            start = Some(t);
-        }
-        if away(&state, &last) {
-            last_unsettled = Some(k);
-        }
-    }
+    // The first time away from the start, and the last still away from the end.
+    let (start, last_unsettled) = trajectory.fold_states(
+        times,
+        || (None, None),
+        |(start, last_unsettled): &mut (Option<usize>, Option<usize>), k, state| {
+            if start.is_none() && away(state, &first) {
+                *start = Some(k);
+            }
+            if away(state, &last) {
+                *last_unsettled = Some(k);
+            }
+        },
+        |(start, last_unsettled), (later_start, later_unsettled)| {
+            (start.or(later_start), later_unsettled.or(last_unsettled))
+        },
+    );
     let end = last_unsettled.map_or(times[times.len() - 1], |k| times[(k + 1).min(times.len() - 1)]);
-    (start.unwrap_or(times[0]), end)
+    (start.map_or(times[0], |k| times[k]), end)
 }
 
 fn concentrations(result: &RunResult, frame: &Frame) -> Figure {

@@ -15,6 +15,7 @@ pub mod summary;
 pub mod table;
 pub mod terminal;
 
+use rayon::prelude::*;
 use std::fs;
 use std::path::{Path, PathBuf};
 
@@ -97,7 +98,7 @@ pub enum Content<'a> {
 }
 
 /// Writes a file's contents into an open file.
-pub type Writer<'a> = dyn Fn(&mut dyn std::io::Write) -> std::io::Result<()> + 'a;
+pub type Writer<'a> = dyn Fn(&mut dyn std::io::Write) -> std::io::Result<()> + Sync + 'a;
 
 impl From<Vec<u8>> for Content<'_> {
     fn from(bytes: Vec<u8>) -> Self {
@@ -149,8 +150,13 @@ pub fn render_run<'a>(
         ));
     }
     let mut charts = Vec::new();
-    for (stem, figure) in chart::figures(result, chart_options) {
-        let (svg, png) = figure.render().map_err(|m| render_error(stem, m))?;
+    let figs = chart::figures(result, chart_options);
+    // Each figure is drawn twice (SVG and PNG), independently of the others: side by side.
+    let rendered: Vec<_> = figs
+        .par_iter()
+        .map(|(stem, figure)| figure.render().map_err(|m| render_error(stem, m)))
+        .collect::<Result<_, _>>()?;
+    for ((stem, figure), (svg, png)) in figs.into_iter().zip(rendered) {
         charts.push((figure.title.clone(), svg.clone()));
         files.push((format!("{stem}.svg"), svg.into_bytes().into()));
         files.push((format!("{stem}.png"), png.into()));
@@ -247,18 +253,19 @@ pub fn write_all(dir: &Path, files: &[(String, Content<'_>)], force: bool) -> Re
     let staging = parent.join(format!(".{name}.kinequil-new-{}", std::process::id()));
     let staged = (|| -> Result<(), Error> {
         fs::create_dir_all(&staging).map_err(|e| write_error(&staging, e))?;
-        for (file, content) in files {
+        // The large tables take the longest; they are written side by side with the rest.
+        files.par_iter().try_for_each(|(file, content)| {
             let path = staging.join(file);
-            match content {
+            let written = match content {
                 Content::Bytes(bytes) => fs::write(&path, bytes),
                 Content::Stream(write) => fs::File::create(&path).and_then(|file| {
                     let mut out = std::io::BufWriter::new(file);
                     write(&mut out)?;
                     std::io::Write::flush(&mut out)
                 }),
-            }
-            .map_err(|e| write_error(&path, e))?;
-        }
+            };
+            written.map_err(|e| write_error(&path, e))
+        })?;
         let marker = staging.join(RUN_MARKER);
         fs::write(
             &marker,

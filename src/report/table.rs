@@ -1,5 +1,7 @@
 //! CSV tables.
 
+use rayon::prelude::*;
+
 use crate::kinetics::RateModel;
 use crate::run::RunResult;
 
@@ -58,8 +60,7 @@ fn write_state_table(result: &RunResult, times: &[f64], out: &mut dyn std::io::W
         header.push("p_total [bar]".into());
     }
     write_header(&header, out)?;
-    let mut row = Row::default();
-    for &t in times {
+    let line = |row: &mut Row, &t: &f64| {
         let state = result.solution.trajectory.state_at(t);
         row.number(t / t_scale);
         for c in &state {
@@ -71,10 +72,25 @@ fn write_state_table(result: &RunResult, times: &[f64], out: &mut dyn std::io::W
             }
             row.number(total);
         }
-        row.write(out)?;
+        row.finish()
+    };
+    // Lines are built side by side (formatting millions of numbers is most of a large table's
+    // time), a block at a time so that only one block is ever held in memory.
+    for block in times.chunks(BLOCK_ROWS) {
+        let lines: Vec<String> = block
+            .par_iter()
+            .with_min_len(BLOCK_ROWS / 8)
+            .map_init(Row::default, line)
+            .collect();
+        for text in &lines {
+            out.write_all(text.as_bytes())?;
+        }
     }
     out.flush()
 }
+
+/// Rows of a state table formatted at once (5000 species: about 5 MB).
+const BLOCK_ROWS: usize = 64;
 
 /// Most steps in `rates.csv`: beyond this, the busiest steps (largest peak forward rate) are
 /// kept so that tables of large networks stay a manageable size.
@@ -85,11 +101,19 @@ pub const MAX_RATE_STEPS: usize = 100;
 pub fn peak_forward_rates(result: &RunResult, times: &[f64]) -> Vec<f64> {
     let model = RateModel::new(&result.network);
     let m = model.n_steps();
-    let (mut f, mut peak) = (vec![0.0; m], vec![0.0_f64; m]);
-    for &t in times {
-        model.forward_rates(&result.solution.trajectory.state_at(t), &mut f);
-        peak.iter_mut().zip(&f).for_each(|(p, v)| *p = p.max(*v));
-    }
+    // (peak so far, the rates at the time in hand) per thread.
+    let (peak, _) = result.solution.trajectory.fold_states(
+        times,
+        || (vec![0.0_f64; m], vec![0.0; m]),
+        |(peak, f), _, state| {
+            model.forward_rates(state, f);
+            peak.iter_mut().zip(f.iter()).for_each(|(p, v)| *p = p.max(*v));
+        },
+        |(mut peak, f), (other, _)| {
+            peak.iter_mut().zip(&other).for_each(|(p, v)| *p = p.max(*v));
+            (peak, f)
+        },
+    );
     peak
 }
 
@@ -98,16 +122,25 @@ pub fn peak_forward_rates(result: &RunResult, times: &[f64]) -> Vec<f64> {
 pub fn step_rates(result: &RunResult, times: &[f64], steps: &[usize]) -> (Vec<Vec<f64>>, Vec<Vec<f64>>) {
     let model = RateModel::new(&result.network);
     let m = model.n_steps();
-    let (mut forward, mut reverse) = (vec![Vec::new(); m], vec![Vec::new(); m]);
-    for &t in times {
-        let state = result.solution.trajectory.state_at(t);
-        for &j in steps {
-            let (f, r) = model.step_rate(j, &state);
-            forward[j].push(f);
-            reverse[j].push(r);
-        }
-    }
-    (forward, reverse)
+    result.solution.trajectory.fold_states(
+        times,
+        || (vec![Vec::new(); m], vec![Vec::new(); m]),
+        |(forward, reverse), _, state| {
+            for &j in steps {
+                let (f, r) = model.step_rate(j, state);
+                forward[j].push(f);
+                reverse[j].push(r);
+            }
+        },
+        // Runs of times are joined in order: the later run's rates go after the earlier's.
+        |(mut forward, mut reverse), (later_forward, later_reverse)| {
+            for &j in steps {
+                forward[j].extend(&later_forward[j]);
+                reverse[j].extend(&later_reverse[j]);
+            }
+            (forward, reverse)
+        },
+    )
 }
 
 /// The steps with the largest peak forward rate among those `only` accepts, at most `limit`, in
@@ -193,6 +226,14 @@ impl Row {
         self.line.clear();
         self.fields = 0;
         Ok(())
+    }
+
+    /// The line, ended, handed over (the row starts afresh).
+    fn finish(&mut self) -> String {
+        self.line.push('\n');
+        self.fields = 0;
+        let capacity = self.line.len();
+        std::mem::replace(&mut self.line, String::with_capacity(capacity))
     }
 }
 
