@@ -153,20 +153,18 @@ pub fn run(owned: Network, settings: &RunSettings) -> Result<RunResult, Error> {
             message: "must be a positive number of seconds".into(),
         });
     }
-    let stoichiometry = Stoichiometry::new(network);
     let model = RateModel::new(network);
     let atol: Vec<f64> = network
         .species
         .iter()
         .map(|s| s.atol.unwrap_or(settings.atol))
         .collect();
-    // The equilibrium is solved first: it tells the integration where equilibrium is, and its
-    // slowest relaxation time how long the approach takes.
-    let solved = equilibrium::solve(network, &stoichiometry);
-    let relaxation = match &solved {
-        Ok(exact) => relaxation::modes(network, &exact.concentrations),
-        Err(_) => Err("needs an equilibrium (see the equilibrium line)".to_string()),
-    };
+    // The audit needs the network alone, so it runs beside the equilibrium solve.
+    let (audit, (stoichiometry, solved, relaxation)) = side_by_side(
+        settings.threads,
+        || audit::audit(network, audit::DEFAULT_TOL_KJ, audit::Adjust::Kr),
+        || solve_first(network),
+    );
     let options = integration_options(network, settings, &atol, &solved, &relaxation);
     let solution = integrate::integrate(
         &model,
@@ -187,19 +185,27 @@ pub fn run(owned: Network, settings: &RunSettings) -> Result<RunResult, Error> {
         _ => (None, false),
     };
     let settle_reference = settle_reference(equilibrium.as_ref(), &solved, disagrees);
-    let settling = settling(
-        trajectory,
-        settle_reference.map(|c| c.as_slice()),
-        &atol,
-        settings,
-        &names,
-    );
-    let drift = analysis::conservation_drift(trajectory, &stoichiometry.conservation);
     let reference = solved
         .as_ref()
         .ok()
         .map(|e| e.concentrations.as_slice())
         .or(equilibrium.as_deref());
+    let end = reference.unwrap_or(trajectory.last_state());
+    // Two passes over the trajectory that need nothing from each other.
+    let (settling, peaks) = side_by_side(
+        settings.threads,
+        || {
+            settling(
+                trajectory,
+                settle_reference.map(|c| c.as_slice()),
+                &atol,
+                settings,
+                &names,
+            )
+        },
+        || verdict::peaks(trajectory, end, &atol, settings.rtol, &names),
+    );
+    let drift = analysis::conservation_drift(trajectory, &stoichiometry.conservation);
     let progress = progress(
         &trajectory.states[0],
         &final_state,
@@ -212,14 +218,11 @@ pub fn run(owned: Network, settings: &RunSettings) -> Result<RunResult, Error> {
         .filter(|&t| t == final_time)
         .and_then(|t| verdict::hold_verdict(t, &progress, settings.settle_on.as_deref(), &names));
     let conversion = verdict::conversion(network, &final_state, reference);
-    let end = reference.unwrap_or(trajectory.last_state());
-    let peaks = verdict::peaks(trajectory, end, &atol, settings.rtol, &names);
     let net_fluxes = match (&solved, &equilibrium) {
         (Err(_), Some(steady)) => verdict::net_fluxes(network, steady),
         _ => Vec::new(),
     };
     let settings = with_output_times(settings, final_time);
-    let audit = audit::audit(network, audit::DEFAULT_TOL_KJ, audit::Adjust::Kr);
     Ok(RunResult {
         network: owned,
         stoichiometry,
@@ -242,6 +245,44 @@ pub fn run(owned: Network, settings: &RunSettings) -> Result<RunResult, Error> {
         peaks,
         net_fluxes,
     })
+}
+
+/// The conservation laws, the equilibrium solved directly and its relaxation modes: solved
+/// before integrating, as the equilibrium tells the integration where equilibrium is, and its
+/// slowest relaxation time how long the approach takes.
+fn solve_first(
+    network: &Network,
+) -> (
+    Stoichiometry,
+    Result<Equilibrium, NoEquilibrium>,
+    Result<Vec<Mode>, String>,
+) {
+    let stoichiometry = Stoichiometry::new(network);
+    let solved = equilibrium::solve(network, &stoichiometry);
+    let relaxation = match &solved {
+        Ok(exact) => relaxation::modes(network, &exact.concentrations),
+        Err(_) => Err("needs an equilibrium (see the equilibrium line)".to_string()),
+    };
+    (stoichiometry, solved, relaxation)
+}
+
+/// `a` on a thread of its own beside `b` on this one when the run may use more than one thread
+/// (a study's members run one thread each, side by side already), else one after the other.
+/// `b` stays on this thread so that what it allocates, and later frees, is in the memory the
+/// integration reuses (on another thread it would add that much to the run's peak).
+fn side_by_side<A: Send, B>(threads: usize, a: impl FnOnce() -> A + Send, b: impl FnOnce() -> B) -> (A, B) {
+    if threads > 1 {
+        std::thread::scope(|scope| {
+            let beside = scope.spawn(a);
+            let here = b();
+            let there = beside
+                .join()
+                .unwrap_or_else(|panic| std::panic::resume_unwind(panic));
+            (there, here)
+        })
+    } else {
+        (a(), b())
+    }
 }
 
 /// The integration's settings from the run's: per-species tolerances, the solved equilibrium

@@ -98,7 +98,7 @@ pub enum Content<'a> {
 }
 
 /// Writes a file's contents into an open file.
-pub type Writer<'a> = dyn Fn(&mut dyn std::io::Write) -> std::io::Result<()> + Sync + 'a;
+pub type Writer<'a> = dyn Fn(&mut dyn std::io::Write) -> std::io::Result<()> + 'a;
 
 impl From<Vec<u8>> for Content<'_> {
     fn from(bytes: Vec<u8>) -> Self {
@@ -253,19 +253,20 @@ pub fn write_all(dir: &Path, files: &[(String, Content<'_>)], force: bool) -> Re
     let staging = parent.join(format!(".{name}.kinequil-new-{}", std::process::id()));
     let staged = (|| -> Result<(), Error> {
         fs::create_dir_all(&staging).map_err(|e| write_error(&staging, e))?;
-        // The large tables take the longest; they are written side by side with the rest.
-        files.par_iter().try_for_each(|(file, content)| {
+        // One file at a time: the large tables are formatted side by side within themselves,
+        // and writing files side by side as well would add their buffers to the run's peak.
+        for (file, content) in files {
             let path = staging.join(file);
-            let written = match content {
+            match content {
                 Content::Bytes(bytes) => fs::write(&path, bytes),
                 Content::Stream(write) => fs::File::create(&path).and_then(|file| {
                     let mut out = std::io::BufWriter::new(file);
                     write(&mut out)?;
                     std::io::Write::flush(&mut out)
                 }),
-            };
-            written.map_err(|e| write_error(&path, e))
-        })?;
+            }
+            .map_err(|e| write_error(&path, e))?;
+        }
         let marker = staging.join(RUN_MARKER);
         fs::write(
             &marker,
