@@ -5,7 +5,8 @@
 //! `../shared/bench/RESULTS.md`; compare counts, and times as ratios within one machine.
 //!
 //! Run: `cargo bench --bench peer` (optionally `-- NAME` to pick networks). Same tolerances as the
-//! peers' main pass: rtol 1e-6, atol 1e-10.
+//! peers' main pass: rtol 1e-6, atol 1e-10. Then the whole job on each network as a user runs it
+//! (`kinequil run`, default tolerances, every report), with its time and peak memory.
 
 use std::path::{Path, PathBuf};
 use std::time::Instant;
@@ -94,6 +95,7 @@ fn main() {
         "read s",
         "fastest peer"
     );
+    let mut whole = Vec::new();
     for path in nets {
         let name = path.file_stem().unwrap().to_string_lossy().into_owned();
         if !filter.is_empty() && !filter.contains(&name) {
@@ -167,6 +169,24 @@ fn main() {
                 .and_then(|(_, fastest)| fastest.get(&name))
                 .map_or("-".into(), |(method, t)| format!("{method} {:.1}x", t / seconds))
         );
+        whole.push((name, network));
+    }
+    println!(
+        "\nwhole job, `kinequil run` in a process of its own (read the file, solve, integrate to\n\
+         detected equilibrium at the default tolerances, analyse, write every report), median of {WHOLE_RUNS}:"
+    );
+    println!("{:<10} {:>5} {:>10} {:>8}", "net", "N", "seconds", "peak MB");
+    for (name, network) in whole {
+        match whole_run(&network, &name) {
+            Some((seconds, peak)) => println!(
+                "{:<10} {:>5} {:>10.3} {:>8}",
+                name,
+                network.n_species(),
+                seconds,
+                peak.map_or("-".into(), |m| format!("{m:.0}"))
+            ),
+            None => println!("{name:<10} the run failed or could not be started"),
+        }
     }
 }
 
@@ -195,15 +215,11 @@ fn reset_peak_memory() {
 
 /// Peak resident memory since the last reset, MB (Linux: VmHWM in /proc/self/status).
 fn peak_memory_mb() -> Option<f64> {
-    let status = std::fs::read_to_string("/proc/self/status").ok()?;
-    let line = status.lines().find(|l| l.starts_with("VmHWM:"))?;
-    let kb: f64 = line.split_whitespace().nth(1)?.parse().ok()?;
-    Some(kb / 1024.0)
+    high_water_mb(&std::fs::read_to_string("/proc/self/status").ok()?)
 }
 
-/// Seconds to read the network as a network file (its text written out here): the reader's
-/// cost, which must grow linearly with the size of the network.
-fn read_time(network: &Network) -> f64 {
+/// The network as a network file (what a user would have written).
+fn network_text(network: &Network) -> String {
     let mut text = String::from("[species]\n");
     for s in &network.species {
         text += &format!("{} = {}\n", s.name, s.initial);
@@ -214,16 +230,80 @@ fn read_time(network: &Network) -> f64 {
             text += &format!("kr = {}\n", r.kr);
         }
     }
+    text
+}
+
+/// Seconds to read the network as a network file: the reader's cost, which must grow linearly
+/// with the size of the network.
+fn read_time(network: &Network) -> f64 {
+    let text = network_text(network);
     let started = Instant::now();
     Network::from_text(&text, Path::new("peer.toml")).expect("the written network reads back");
     started.elapsed().as_secs_f64()
 }
 
-/// The newest peer results file (`../shared/bench/results/*.jsonl`, or `KINEQUIL_PEER_RESULTS`)
-/// and, per network, the fastest peer that finished: (method, median seconds).
+/// Runs of the whole job per network (the median is taken).
+const WHOLE_RUNS: usize = 3;
+
+/// The whole job as a user runs it: `kinequil run` on the network written as a file, in a
+/// process of its own (default tolerances, to detected equilibrium, every report written into
+/// a fresh folder, removed after). Returns the median wall-clock seconds and the largest peak
+/// resident memory, MB, polled from /proc every 2 ms while the process runs (a peak within its
+/// last 2 ms would be missed; the largest files are written well before the end).
+fn whole_run(network: &Network, name: &str) -> Option<(f64, Option<f64>)> {
+    let dir = std::env::temp_dir().join(format!("kinequil-bench-{}-{name}", std::process::id()));
+    std::fs::create_dir_all(&dir).ok()?;
+    let file = dir.join(format!("{name}.toml"));
+    std::fs::write(&file, network_text(network)).ok()?;
+    let (mut times, mut peak) = (Vec::new(), None::<f64>);
+    for k in 0..WHOLE_RUNS {
+        let out = dir.join(format!("run{k}"));
+        let started = Instant::now();
+        let mut child = std::process::Command::new(env!("CARGO_BIN_EXE_kinequil"))
+            .arg("run")
+            .arg(&file)
+            .arg("--out")
+            .arg(&out)
+            .stdout(std::process::Stdio::null())
+            .stderr(std::process::Stdio::null())
+            .spawn()
+            .ok()?;
+        let status = format!("/proc/{}/status", child.id());
+        let exit = loop {
+            if let Some(mb) = std::fs::read_to_string(&status)
+                .ok()
+                .and_then(|s| high_water_mb(&s))
+            {
+                peak = Some(peak.map_or(mb, |p| p.max(mb)));
+            }
+            match child.try_wait() {
+                Ok(Some(exit)) => break exit,
+                Ok(None) => std::thread::sleep(std::time::Duration::from_millis(2)),
+                Err(_) => return None,
+            }
+        };
+        times.push(started.elapsed().as_secs_f64());
+        if !exit.success() {
+            return None;
+        }
+    }
+    let _ = std::fs::remove_dir_all(&dir);
+    times.sort_by(f64::total_cmp);
+    Some((times[times.len() / 2], peak))
+}
+
+/// VmHWM of a /proc status text, MB.
+fn high_water_mb(status: &str) -> Option<f64> {
+    let line = status.lines().find(|l| l.starts_with("VmHWM:"))?;
+    let kb: f64 = line.split_whitespace().nth(1)?.parse().ok()?;
+    Some(kb / 1024.0)
+}
+
 /// Per network, the fastest peer: (method, median seconds).
 type Fastest = std::collections::HashMap<String, (String, f64)>;
 
+/// The newest peer results file (`../shared/bench/results/*.jsonl`, or `KINEQUIL_PEER_RESULTS`)
+/// and, per network, the fastest peer that finished.
 fn peer_results() -> Option<(String, Fastest)> {
     let file = match std::env::var("KINEQUIL_PEER_RESULTS") {
         Ok(path) => PathBuf::from(path),
