@@ -81,8 +81,9 @@ pub struct FrontalLu {
     factors: Factors,
     /// One per part of `share`, then one for its top.
     workspaces: Vec<Workspace>,
-    /// One worker per part, so that a part is always factored and solved on the same thread,
-    /// whose core's cache keeps what it wrote (None: no parts, or no threads to be had).
+    /// One worker per part after the first (which the calling thread takes), so that a part is
+    /// always factored and solved on the same thread, whose core's cache keeps what it wrote
+    /// (None: fewer than two parts, or no threads to be had).
     workers: Option<ThreadPool>,
     /// The right-hand side before the parts' forward substitutions (merging their changes).
     before: Vec<f64>,
@@ -267,8 +268,10 @@ impl FrontalLu {
         workspaces.push(workspace(stack_peak(&supernodes, &schedule)));
         let workers = (!share.parts.is_empty())
             .then(|| {
+                // Part 0 runs on the calling thread, the others on their workers.
+                let helpers = share.parts.len().checked_sub(1).filter(|&h| h > 0)?;
                 rayon::ThreadPoolBuilder::new()
-                    .num_threads(share.parts.len())
+                    .num_threads(helpers)
                     .thread_name(|k| format!("kinequil-lu-{k}"))
                     .build()
                     .ok()
@@ -505,7 +508,8 @@ const SHARE_ABOVE: usize = 1 << 19;
 /// Subtrees moved to the top while looking for the best split.
 const SPLIT_TRIES: usize = 64;
 
-/// The factorisation, the parts side by side on their workers, then the top on this thread.
+/// The factorisation, the parts side by side (the first on this thread, the others on their
+/// workers), then the top on this thread.
 fn factor_shared<T: Entry + Send>(
     supernodes: &[Supernode],
     share: &Share,
@@ -691,8 +695,11 @@ fn solve_shared<T: Entry + Sync>(
     merge(parts, &mut top.x, before);
 }
 
-/// `job` on each of `jobs`, job k on worker k of `workers` (as many workers as jobs; the
-/// calling thread waits), or one after another on this thread when there are no workers.
+/// `job` on each of `jobs`: job 0 on the calling thread, job k > 0 on worker k − 1 of
+/// `workers` (one worker fewer than jobs), side by side; or one after another on this thread
+/// when there are no workers. The calling thread works instead of waiting: with a worker per
+/// job, three threads shared two cores, and the workers' idle spinning slowed the calling
+/// thread's own share of the work (the top of the tree).
 fn on_workers<J: Send, R: Send>(
     workers: Option<&ThreadPool>,
     jobs: Vec<J>,
@@ -700,18 +707,33 @@ fn on_workers<J: Send, R: Send>(
 ) -> Vec<R> {
     match workers {
         Some(pool) => {
-            let slots: Vec<Mutex<Option<J>>> = jobs.into_iter().map(|j| Mutex::new(Some(j))).collect();
-            pool.broadcast(|context| {
-                let mine = slots[context.index()]
-                    .lock()
-                    .unwrap_or_else(|poisoned| poisoned.into_inner())
-                    .take()
-                    .expect("one job per worker");
-                job(mine)
-            })
+            let mut jobs = jobs.into_iter();
+            let here = jobs.next().expect("a job for the calling thread");
+            let slots: Vec<Mutex<Option<J>>> = jobs.map(|j| Mutex::new(Some(j))).collect();
+            let results: Vec<Mutex<Option<R>>> = slots.iter().map(|_| Mutex::new(None)).collect();
+            let mine = pool.in_place_scope(|scope| {
+                scope.spawn_broadcast(|_, context| {
+                    let theirs = lock(&slots[context.index()]).take().expect("one job per worker");
+                    *lock(&results[context.index()]) = Some(job(theirs));
+                });
+                job(here)
+            });
+            std::iter::once(mine)
+                .chain(results.into_iter().map(|r| {
+                    r.into_inner()
+                        .unwrap_or_else(|poisoned| poisoned.into_inner())
+                        .expect("every worker ran its job")
+                }))
+                .collect()
         }
         None => jobs.into_iter().map(job).collect(),
     }
+}
+
+/// The value behind `mutex`, whether or not a thread panicked holding it (a panic in a job is
+/// raised again by the scope that ran it).
+fn lock<T>(mutex: &Mutex<T>) -> std::sync::MutexGuard<'_, T> {
+    mutex.lock().unwrap_or_else(|poisoned| poisoned.into_inner())
 }
 
 /// Copies a factored front's L and U blocks into the factor stores (U's off-diagonal block by
