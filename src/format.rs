@@ -152,11 +152,11 @@ pub fn push_scientific(out: &mut Vec<u8>, x: f64) {
     };
     let a = x.abs();
     // floor(log10 a) from the binary exponent e (2^e ≤ a < 2^(e+1)): floor(e log10 2) is the
-    // decade or one below it, which the rescaling below corrects; no logarithm needed.
+    // decade or one below it, which the rescaling below corrects; no logarithm needed. In
+    // integers, (e · 78913) >> 18 (78913 / 2^18 = 0.3010299...; the form of U. Adams' Ryu, PLDI
+    // 2018; checked equal to the floating-point form for every e in -1100..1100; the shift rounds
+    // down, negative e included).
     let exponent = ((a.to_bits() >> 52) & 0x7ff) as i32 - 1023;
-    // floor(e log10 2) in integers as (e · 78913) >> 18 (78913 / 2^18 = 0.3010299...; the form
-    // of U. Adams' Ryu, PLDI 2018; checked equal to the floating-point form for every binary
-    // exponent -1100..1100). The shift rounds down, negative e included.
     let decade = if a.is_finite() && a != 0.0 {
         (exponent * 78_913) >> 18
     } else {

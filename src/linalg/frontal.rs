@@ -266,17 +266,19 @@ impl FrontalLu {
         };
         let mut workspaces: Vec<Workspace> = share.parts.iter().map(|_| workspace(0)).collect();
         workspaces.push(workspace(stack_peak(&supernodes, &schedule)));
-        let workers = (!share.parts.is_empty())
-            .then(|| {
-                // Part 0 runs on the calling thread, the others on their workers.
-                let helpers = share.parts.len().checked_sub(1).filter(|&h| h > 0)?;
+        // Part 0 runs on the calling thread, each other part on a worker of its own.
+        let workers = share
+            .parts
+            .len()
+            .checked_sub(1)
+            .filter(|&helpers| helpers > 0)
+            .and_then(|helpers| {
                 rayon::ThreadPoolBuilder::new()
                     .num_threads(helpers)
                     .thread_name(|k| format!("kinequil-lu-{k}"))
                     .build()
                     .ok()
-            })
-            .flatten();
+            });
         Some(FrontalLu {
             order,
             supernodes,
