@@ -77,11 +77,38 @@ struct JacobianTerm {
     targets: Vec<(usize, f64)>,
 }
 
+/// A step's rate law laid out flat for the right-hand side, which runs once or twice per
+/// integration step: each direction's concentrations by index (at most two, a squared species
+/// twice, an absent one as index n, where the right-hand side keeps a 1). Steps of other
+/// orders or with a pure phase keep `general` and use their [`StepLaw`].
+#[derive(Debug, Clone)]
+struct FlatStep {
+    kf: f64,
+    kr: f64,
+    forward: [u32; 2],
+    reverse: [u32; 2],
+    general: bool,
+}
+
+thread_local! {
+    /// The right-hand side's buffers, kept between calls: the concentrations with a 1 appended
+    /// (what an absent slot of a [`FlatStep`] reads, so that no slot needs a branch: steps of
+    /// different shapes in turn made such branches unpredictable), and every step's net rate.
+    static RHS_BUFFERS: std::cell::RefCell<(Vec<f64>, Vec<f64>)> =
+        const { std::cell::RefCell::new((Vec::new(), Vec::new())) };
+}
+
 /// The ODE system of a network: right-hand side and Jacobian.
 #[derive(Debug, Clone)]
 pub struct RateModel {
     n: usize,
     steps: Vec<StepLaw>,
+    flat: Vec<FlatStep>,
+    /// The stoichiometric matrix by species: each species' (step, net coefficient) pairs in
+    /// step order, at `row_entries[start..end]` for `rows`' (species, start, end), which are
+    /// sorted by length so that the loop over a row ends predictably.
+    rows: Vec<(usize, usize, usize)>,
+    row_entries: Vec<(u32, f64)>,
     pattern: Pattern,
     terms: Vec<JacobianTerm>,
 }
@@ -129,9 +156,47 @@ impl RateModel {
                 }
             }
         }
+        let flat = steps
+            .iter()
+            .map(|step| {
+                // With kr = 0 the reverse factors are not read (as in the general form, where
+                // 0 times an overflowed product would be NaN).
+                let none: &[Factor] = &[];
+                let reverse = if step.kr == 0.0 { none } else { &step.reverse };
+                let (forward, reverse) = (slots(&step.forward, n), slots(reverse, n));
+                FlatStep {
+                    kf: step.kf,
+                    kr: step.kr,
+                    forward: forward.unwrap_or([n as u32; 2]),
+                    reverse: reverse.unwrap_or([n as u32; 2]),
+                    general: forward.is_none() || reverse.is_none(),
+                }
+            })
+            .collect();
+        let mut row_start = vec![0; n + 1];
+        for step in &steps {
+            step.net.iter().for_each(|&(i, _)| row_start[i + 1] += 1);
+        }
+        for i in 0..n {
+            row_start[i + 1] += row_start[i];
+        }
+        let mut row_entries = vec![(0, 0.0); row_start[n]];
+        let mut next = row_start.clone();
+        for (j, step) in steps.iter().enumerate() {
+            for &(i, nu) in &step.net {
+                row_entries[next[i]] = (j as u32, nu);
+                next[i] += 1;
+            }
+        }
+        let mut rows: Vec<(usize, usize, usize)> =
+            (0..n).map(|i| (i, row_start[i], row_start[i + 1])).collect();
+        rows.sort_by_key(|&(_, start, end)| end - start);
         RateModel {
             n,
             steps,
+            flat,
+            rows,
+            row_entries,
             pattern,
             terms,
         }
@@ -168,18 +233,36 @@ impl RateModel {
         (step.kf * product(&step.forward, c, None), reverse)
     }
 
-    /// dc/dt.
+    /// dc/dt: every step's net rate, then each species' sum over the steps that change it
+    /// (in step order, so the sums are those of adding step by step; gathering by species keeps
+    /// each sum in a register, where adding into dc/dt step by step waited on its own stores).
     pub fn rhs(&self, c: &[f64], dcdt: &mut [f64]) {
-        dcdt.iter_mut().for_each(|v| *v = 0.0);
-        for step in &self.steps {
-            let mut rate = step.kf * product(&step.forward, c, None);
-            if step.kr != 0.0 {
-                rate -= step.kr * product(&step.reverse, c, None);
+        RHS_BUFFERS.with_borrow_mut(|(padded, rates)| {
+            padded.clear();
+            padded.extend_from_slice(c);
+            padded.push(1.0);
+            rates.clear();
+            rates.extend(self.flat.iter().zip(&self.steps).map(|(flat, step)| {
+                if flat.general {
+                    let mut rate = step.kf * product(&step.forward, c, None);
+                    if step.kr != 0.0 {
+                        rate -= step.kr * product(&step.reverse, c, None);
+                    }
+                    rate
+                } else {
+                    // Multiplying by an absent slot's 1 and taking off kr = 0 times a product
+                    // are exact, so this equals the general form bit for bit.
+                    let at = |i: u32| padded[i as usize];
+                    let [a, b] = flat.forward;
+                    let [p, q] = flat.reverse;
+                    flat.kf * (at(a) * at(b)) - flat.kr * (at(p) * at(q))
+                }
+            }));
+            for &(i, start, end) in &self.rows {
+                let row = &self.row_entries[start..end];
+                dcdt[i] = row.iter().fold(0.0, |sum, &(j, nu)| sum + nu * rates[j as usize]);
             }
-            for &(i, nu) in &step.net {
-                dcdt[i] += nu * rate;
-            }
-        }
+        });
     }
 
     /// Values of ∂(dc/dt)/∂c on [`RateModel::pattern`].
@@ -217,6 +300,30 @@ fn factors(orders: &[(usize, f64)], consumed: &[(usize, f64)], network: &Network
             .map(|&(species, _)| Factor::Presence { species }),
     );
     out
+}
+
+/// A direction's factors as the two slots of a [`FlatStep`] (`n` for an absent one), when they
+/// are mass action of total order at most two (orders 1 and 2 only, no pure phase).
+fn slots(factors: &[Factor], n: usize) -> Option<[u32; 2]> {
+    let mut slots = [n as u32; 2];
+    let mut used = 0;
+    for factor in factors {
+        let Factor::Power { species, order } = *factor else {
+            return None;
+        };
+        let copies = if order == 1.0 {
+            1
+        } else if order == 2.0 {
+            2
+        } else {
+            return None;
+        };
+        for _ in 0..copies {
+            *slots.get_mut(used)? = species as u32;
+            used += 1;
+        }
+    }
+    Some(slots)
 }
 
 /// Π of the factors; with `differentiate = Some(f)`, the derivative with respect to the
