@@ -217,9 +217,15 @@ impl RateModel {
 
     /// Forward rate of every step, mol/(L s) (what ranks the steps for tables and charts).
     pub fn forward_rates(&self, c: &[f64], forward: &mut [f64]) {
-        for (rate, step) in forward.iter_mut().zip(&self.steps) {
-            *rate = step.kf * product(&step.forward, c, None);
-        }
+        with_padded(c, |padded, _| {
+            for ((rate, flat), step) in forward.iter_mut().zip(&self.flat).zip(&self.steps) {
+                *rate = if flat.general {
+                    step.kf * product(&step.forward, c, None)
+                } else {
+                    flat.kf * (padded[flat.forward[0] as usize] * padded[flat.forward[1] as usize])
+                };
+            }
+        });
     }
 
     /// Forward and reverse rate of step j alone (for tables of a few steps of a large network).
@@ -237,10 +243,7 @@ impl RateModel {
     /// (in step order, so the sums are those of adding step by step; gathering by species keeps
     /// each sum in a register, where adding into dc/dt step by step waited on its own stores).
     pub fn rhs(&self, c: &[f64], dcdt: &mut [f64]) {
-        RHS_BUFFERS.with_borrow_mut(|(padded, rates)| {
-            padded.clear();
-            padded.extend_from_slice(c);
-            padded.push(1.0);
+        with_padded(c, |padded, rates| {
             rates.clear();
             rates.extend(self.flat.iter().zip(&self.steps).map(|(flat, step)| {
                 if flat.general {
@@ -300,6 +303,17 @@ fn factors(orders: &[(usize, f64)], consumed: &[(usize, f64)], network: &Network
             .map(|&(species, _)| Factor::Presence { species }),
     );
     out
+}
+
+/// Runs `f` on the concentrations with a 1 appended (what a [`FlatStep`]'s absent slot reads)
+/// and on the buffer for step rates, both this thread's, kept between calls.
+fn with_padded<R>(c: &[f64], f: impl FnOnce(&[f64], &mut Vec<f64>) -> R) -> R {
+    RHS_BUFFERS.with_borrow_mut(|(padded, rates)| {
+        padded.clear();
+        padded.extend_from_slice(c);
+        padded.push(1.0);
+        f(padded, rates)
+    })
 }
 
 /// A direction's factors as the two slots of a [`FlatStep`] (`n` for an absent one), when they
