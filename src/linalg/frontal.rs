@@ -119,6 +119,8 @@ struct Part {
 struct Workspace {
     /// Dense frontal matrix of the supernode being factored (column-major, largest size²).
     front: Vec<f64>,
+    /// The front before, when it holds an update matrix its parent, factored next, reads there.
+    held: Vec<f64>,
     /// Update matrices waiting for their parent.
     stack: Vec<f64>,
     /// Reordered right-hand side during a solve.
@@ -260,6 +262,7 @@ impl FrontalLu {
         let largest = supernodes.iter().map(Supernode::size).max().unwrap_or(0);
         let workspace = |stack_capacity| Workspace {
             front: vec![0.0; largest * largest],
+            held: vec![0.0; largest * largest],
             stack: Vec::with_capacity(stack_capacity),
             x: vec![0.0; n],
             sum: vec![0.0; largest],
@@ -581,38 +584,61 @@ fn factor_nodes<T: Entry>(
     finished: &[&[f64]],
     waiting: &[Option<(usize, usize)>],
 ) -> Result<(), UnstablePivot> {
-    let Workspace { front, stack, .. } = workspace;
+    let Workspace {
+        front, held, stack, ..
+    } = workspace;
     stack.clear();
-    for &s in nodes {
+    // The last child of a supernode is factored just before it (children come first, in
+    // order): its update matrix is left in its front, which becomes `held`, and read from
+    // there, instead of going through the stack.
+    let mut holding = false;
+    for (k, &s) in nodes.iter().enumerate() {
         let node = &supernodes[s];
         let (size, width) = (node.size(), node.width());
-        let front = &mut front[..size * size];
-        front.fill(0.0);
+        let front_now = &mut front[..size * size];
+        front_now.fill(0.0);
         for &(p, at) in &node.entries {
-            front[at] += values[p];
+            front_now[at] += values[p];
         }
-        for &c in node.children.iter().rev() {
+        for (i, &c) in node.children.iter().rev().enumerate() {
             let child = &supernodes[c];
             let r = child.below.len();
-            // Only a part's root waits elsewhere, and only the top has part roots as children.
-            let (update, own) = match waiting[c] {
-                Some((part, offset)) => (&finished[part][offset..offset + r * r], false),
-                None => (&stack[stack.len() - r * r..], true),
+            let extend_add = |front: &mut [f64], update: &[f64], stride: usize| {
+                for (m, &to_col) in child.in_parent.iter().enumerate() {
+                    let target = &mut front[to_col * size..(to_col + 1) * size];
+                    for (&to_row, &u) in child.in_parent.iter().zip(&update[m * stride..m * stride + r]) {
+                        target[to_row] += u;
+                    }
+                }
             };
-            for (&to_col, column) in child.in_parent.iter().zip(update.chunks_exact(r)) {
-                let target = &mut front[to_col * size..(to_col + 1) * size];
-                for (&to_row, &u) in child.in_parent.iter().zip(column) {
-                    target[to_row] += u;
+            if i == 0 && holding {
+                // The child's front: its update is the block below and right of its pivots.
+                let (w, m) = (child.width(), child.size());
+                extend_add(front_now, &held[w * m + w..], m);
+                holding = false;
+                continue;
+            }
+            // Only a part's root waits elsewhere, and only the top has part roots as children.
+            match waiting[c] {
+                Some((part, offset)) => extend_add(front_now, &finished[part][offset..offset + r * r], r),
+                None => {
+                    extend_add(front_now, &stack[stack.len() - r * r..], r);
+                    stack.truncate(stack.len() - r * r);
                 }
             }
-            if own {
-                stack.truncate(stack.len() - r * r);
-            }
         }
-        factor_front(front, size, size, width)?;
-        keep(node, front, lower, upper, at);
-        for j in width..size {
-            stack.extend_from_slice(&front[j * size + width..(j + 1) * size]);
+        factor_front(front_now, size, size, width)?;
+        keep(node, front_now, lower, upper, at);
+        let parent_next = nodes
+            .get(k + 1)
+            .is_some_and(|&p| supernodes[p].children.last() == Some(&s));
+        if parent_next && size > width {
+            std::mem::swap(front, held);
+            holding = true;
+        } else {
+            for j in width..size {
+                stack.extend_from_slice(&front_now[j * size + width..(j + 1) * size]);
+            }
         }
     }
     Ok(())
