@@ -118,7 +118,7 @@ struct RunArgs {
     /// Run temperature, overriding the file's (K, or with units such as "60 degC").
     #[arg(long, value_name = "T")]
     pub temperature: Option<String>,
-    /// Integration method: auto (NDF from 16 species, RODAS4 below), or either one, to cross-check.
+    /// Integration method: auto (NDF from 10 species, RODAS4 below), or either one, to cross-check.
     #[arg(long, value_enum, default_value_t = IntegratorArg::Auto)]
     pub integrator: IntegratorArg,
     /// Time unit of tables and charts.

@@ -379,8 +379,11 @@ pub enum Method {
 }
 
 /// From this many species `Auto` chooses NDF: on the peer networks NDF is 2-3.5 times faster
-/// from 100 species up and 1.4 times on a 20-species ensemble member, and no faster at 10.
-pub const NDF_FROM: usize = 16;
+/// from 100 species up, 1.4 times on a 20-species ensemble member, and on syn_N10 about 1.35
+/// times (0.9-1.1 against 1.3-1.5 ms, three interleaved pairs, 688 against 1254 rate
+/// evaluations; it was no faster there before the NDF rules of 2026-12-02/03); RODAS4 stays
+/// faster on 2 and 3 species (rev_first 0.05 against 0.1 ms, Robertson 0.6 against 0.8 ms).
+pub const NDF_FROM: usize = 10;
 
 impl Method {
     /// The method that runs for a network of `n` species.
