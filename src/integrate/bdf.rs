@@ -346,7 +346,7 @@ pub(super) fn integrate(
     let mut stats = Stats::for_solver(&iteration.solver);
     stats.method = "NDF (variable order 1-5, modified Newton)".into();
     let mut detector = EquilibriumDetector::when_needed(&pattern, laws, options);
-    let projection = Projection::new(laws, c0);
+    let mut projection = Projection::new(laws, c0);
     let coefficients = Coefficients::new();
     // Newton stops when its remaining error is 6 % of the local error tolerance (the norm is
     // scaled by atol + rtol|y|, in which the error test asks for ≤ 1): small beside the
@@ -491,7 +491,7 @@ pub(super) fn integrate(
         // (and the next predictor) carry it: a change to y alone would be undone by the next
         // predictor, step after step, and hold the solution off equilibrium at the level of
         // the linear solves' rounding (seen as a 1e-8 floor on a 1000-species network).
-        if let Some(projection) = &projection {
+        if let Some(projection) = &mut projection {
             work.error.copy_from_slice(&work.y);
             projection.apply(&mut work.y, &options.atol);
             for ((d, y), unprojected) in work.d.iter_mut().zip(&work.y).zip(&work.error) {

@@ -90,7 +90,7 @@ pub(super) fn integrate(
     let mut solver = LinearSolver::new(jac_pattern.clone(), options.force_dense);
     let mut stats = Stats::for_solver(&solver);
     let mut detector = EquilibriumDetector::when_needed(&jac_pattern, laws, options);
-    let projection = Projection::new(laws, c0);
+    let mut projection = Projection::new(laws, c0);
 
     let Start {
         max_time,
@@ -133,7 +133,7 @@ pub(super) fn integrate(
         // Accept.
         t = advanced(t, h, options.until);
         std::mem::swap(&mut y, &mut y_new);
-        if let Some(projection) = &projection {
+        if let Some(projection) = &mut projection {
             projection.apply(&mut y, &options.atol);
         }
         model.rhs(&y, &mut f);
