@@ -571,7 +571,8 @@ fn factor_shared<T: Entry + Send>(
 /// The multifrontal factorisation of `nodes` (children first) into factor slices that start at
 /// `at` in `lower` and `upper`: each supernode's front assembled from the matrix and its
 /// children's update matrices (from this workspace's stack, or, for a part's root, from that
-/// part's finished stack), factored, copied out, and its own update matrix pushed.
+/// part's finished stack), factored, copied out, and its own update matrix pushed (or, when
+/// its parent comes next, left in its front for the parent to read).
 #[allow(clippy::too_many_arguments)]
 fn factor_nodes<T: Entry>(
     supernodes: &[Supernode],
