@@ -90,6 +90,32 @@ struct FlatStep {
     general: bool,
 }
 
+impl FlatStep {
+    /// kf Π(forward factors), from the slots or, for a general step, from its law.
+    fn forward_rate(&self, step: &StepLaw, c: &[f64], padded: &[f64]) -> f64 {
+        if self.general {
+            step.kf * product(&step.forward, c, None)
+        } else {
+            self.kf * (padded[self.forward[0] as usize] * padded[self.forward[1] as usize])
+        }
+    }
+
+    /// Forward minus reverse rate. Multiplying by an absent slot's 1 and taking off kr = 0
+    /// times a product are exact, so the slots give the general form's value bit for bit.
+    fn net_rate(&self, step: &StepLaw, c: &[f64], padded: &[f64]) -> f64 {
+        let forward = self.forward_rate(step, c, padded);
+        if self.general {
+            if step.kr == 0.0 {
+                forward
+            } else {
+                forward - step.kr * product(&step.reverse, c, None)
+            }
+        } else {
+            forward - self.kr * (padded[self.reverse[0] as usize] * padded[self.reverse[1] as usize])
+        }
+    }
+}
+
 thread_local! {
     /// The right-hand side's buffers, kept between calls: the concentrations with a 1 appended
     /// (what an absent slot of a [`FlatStep`] reads, so that no slot needs a branch: steps of
@@ -219,11 +245,7 @@ impl RateModel {
     pub fn forward_rates(&self, c: &[f64], forward: &mut [f64]) {
         with_padded(c, |padded, _| {
             for ((rate, flat), step) in forward.iter_mut().zip(&self.flat).zip(&self.steps) {
-                *rate = if flat.general {
-                    step.kf * product(&step.forward, c, None)
-                } else {
-                    flat.kf * (padded[flat.forward[0] as usize] * padded[flat.forward[1] as usize])
-                };
+                *rate = flat.forward_rate(step, c, padded);
             }
         });
     }
@@ -245,22 +267,12 @@ impl RateModel {
     pub fn rhs(&self, c: &[f64], dcdt: &mut [f64]) {
         with_padded(c, |padded, rates| {
             rates.clear();
-            rates.extend(self.flat.iter().zip(&self.steps).map(|(flat, step)| {
-                if flat.general {
-                    let mut rate = step.kf * product(&step.forward, c, None);
-                    if step.kr != 0.0 {
-                        rate -= step.kr * product(&step.reverse, c, None);
-                    }
-                    rate
-                } else {
-                    // Multiplying by an absent slot's 1 and taking off kr = 0 times a product
-                    // are exact, so this equals the general form bit for bit.
-                    let at = |i: u32| padded[i as usize];
-                    let [a, b] = flat.forward;
-                    let [p, q] = flat.reverse;
-                    flat.kf * (at(a) * at(b)) - flat.kr * (at(p) * at(q))
-                }
-            }));
+            rates.extend(
+                self.flat
+                    .iter()
+                    .zip(&self.steps)
+                    .map(|(flat, step)| flat.net_rate(step, c, padded)),
+            );
             for &(i, start, end) in &self.rows {
                 let row = &self.row_entries[start..end];
                 dcdt[i] = row.iter().fold(0.0, |sum, &(j, nu)| sum + nu * rates[j as usize]);
