@@ -954,7 +954,8 @@ fn factor_front(front: &mut [f64], ld: usize, size: usize, width: usize) -> Resu
     let (pivots, mut right_of, mut below, mut rest) = matrix.split_at_mut(width, width);
     // L21 U11 = A21, solved as U11ᵀ L21ᵀ = A21ᵀ; U12 = L11⁻¹ A12.
     solve_lower_triangular_in_place(pivots.rb().transpose(), below.rb_mut().transpose_mut(), Par::Seq);
-    // Column by column without early exit, so that the test vectorises (NaN fails `<=`).
+    // Column by column without early exit, so that the test vectorises (an infinity fails the
+    // bound, a NaN is caught by name).
     for j in 0..width {
         let column = below
             .rb()
@@ -964,7 +965,7 @@ fn factor_front(front: &mut [f64], ld: usize, size: usize, width: usize) -> Resu
         if column
             .as_slice()
             .iter()
-            .fold(false, |bad, l| bad | !(l.abs() <= bound))
+            .fold(false, |bad, l| bad | l.is_nan() | (l.abs() > bound))
         {
             return Err(UnstablePivot);
         }
@@ -1033,4 +1034,33 @@ fn symmetrised(pattern: &Pattern) -> Pattern {
         }
     }
     Pattern::from_entries(pattern.n, entries)
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    /// A 3 × 3 front with one pivot, column-major: the pivot, then the two rows below it.
+    fn front_with_first_column(pivot: f64, below: [f64; 2]) -> Vec<f64> {
+        vec![pivot, below[0], below[1], 1.0, 1.0, 0.0, 1.0, 0.0, 1.0]
+    }
+
+    #[test]
+    fn the_threshold_test_reads_every_multiplier_below_the_pivot_block() {
+        // Multipliers 0.5 and 0.25 pass; 1e4 (pivot 1e-4 against 1, beyond 1/PIVOT_THRESHOLD),
+        // an infinite and a NaN one fail, wherever they sit in the column.
+        let mut fine = front_with_first_column(2.0, [1.0, 0.5]);
+        assert_eq!(factor_front(&mut fine, 3, 3, 1), Ok(()));
+        assert_eq!((fine[1], fine[2]), (0.5, 0.25));
+        // The Schur complement: a11 − l1 u12 = 1 − 0.5 · 1.
+        assert_eq!(fine[4], 0.5);
+        for below in [[1.0, 0.0], [0.0, 1.0]] {
+            let mut small_pivot = front_with_first_column(1e-4, below);
+            assert_eq!(factor_front(&mut small_pivot, 3, 3, 1), Err(UnstablePivot));
+        }
+        for bad in [f64::INFINITY, f64::NAN] {
+            let mut front = front_with_first_column(2.0, [0.5, bad]);
+            assert_eq!(factor_front(&mut front, 3, 3, 1), Err(UnstablePivot));
+        }
+    }
 }
