@@ -820,7 +820,14 @@ fn forward<T: Entry>(
                 }
             }
         }
-        if r > 0 {
+        if width == 1 {
+            // One column: each row's sum would be its one product (0 + p = p exactly), so it
+            // goes straight to x, without the sum buffer.
+            let xk = x[node.first];
+            for (&row, &l) in node.below.iter().zip(&block[1..]) {
+                x[row] -= l.to_f64() * xk;
+            }
+        } else if r > 0 {
             let sum = &mut sum[..r];
             below_product(block, size, width, &x[node.first..node.end], sum);
             for (&row, &s) in node.below.iter().zip(sum.iter()) {
@@ -845,7 +852,12 @@ fn backward<T: Entry>(
         let node = &supernodes[s];
         let (size, width, r) = (node.size(), node.width(), node.below.len());
         let block = &lower[node.lower_at..node.lower_at + size * width];
-        if r > 0 {
+        if width == 1 {
+            // One pivot row: its dot product reads x through the row indices directly, in
+            // `dot`'s order, instead of from a gathered copy read once.
+            let row = &upper[node.upper_at..node.upper_at + r];
+            x[node.first] -= indexed_dot(row, &node.below, x);
+        } else if r > 0 {
             let gathered = &mut sum[..r];
             for (g, &row) in gathered.iter_mut().zip(&node.below) {
                 *g = x[row];
@@ -887,6 +899,24 @@ fn below_product<T: Entry>(block: &[T], size: usize, width: usize, x: &[f64], su
             *s += a.to_f64() * xa;
         }
     }
+}
+
+/// `dot(a, b)` for b_i = x[rows_i], summed in the same order.
+fn indexed_dot<T: Entry>(a: &[T], rows: &[usize], x: &[f64]) -> f64 {
+    let mut sums = [0.0; 4];
+    let (a4, r4) = (a.chunks_exact(4), rows.chunks_exact(4));
+    let tail: f64 = a4
+        .remainder()
+        .iter()
+        .zip(r4.remainder())
+        .map(|(v, &row)| v.to_f64() * x[row])
+        .sum();
+    for (v, rows) in a4.zip(r4) {
+        for l in 0..4 {
+            sums[l] += v[l].to_f64() * x[rows[l]];
+        }
+    }
+    (sums[0] + sums[1]) + (sums[2] + sums[3]) + tail
 }
 
 /// Σ a_i b_i with four running sums, so that the additions do not wait on one another.
