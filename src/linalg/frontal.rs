@@ -856,7 +856,7 @@ fn backward<T: Entry>(
             // One pivot row: its dot product reads x through the row indices directly, in
             // `dot`'s order, instead of from a gathered copy read once.
             let row = &upper[node.upper_at..node.upper_at + r];
-            x[node.first] -= indexed_dot(row, &node.below, x);
+            x[node.first] -= dot_through(row, &node.below, |row| x[row]);
         } else if r > 0 {
             let gathered = &mut sum[..r];
             for (g, &row) in gathered.iter_mut().zip(&node.below) {
@@ -901,37 +901,25 @@ fn below_product<T: Entry>(block: &[T], size: usize, width: usize, x: &[f64], su
     }
 }
 
-/// `dot(a, b)` for b_i = x[rows_i], summed in the same order.
-fn indexed_dot<T: Entry>(a: &[T], rows: &[usize], x: &[f64]) -> f64 {
-    let mut sums = [0.0; 4];
-    let (a4, r4) = (a.chunks_exact(4), rows.chunks_exact(4));
-    let tail: f64 = a4
-        .remainder()
-        .iter()
-        .zip(r4.remainder())
-        .map(|(v, &row)| v.to_f64() * x[row])
-        .sum();
-    for (v, rows) in a4.zip(r4) {
-        for l in 0..4 {
-            sums[l] += v[l].to_f64() * x[rows[l]];
-        }
-    }
-    (sums[0] + sums[1]) + (sums[2] + sums[3]) + tail
-}
-
 /// Σ a_i b_i with four running sums, so that the additions do not wait on one another.
 fn dot<T: Entry>(a: &[T], b: &[f64]) -> f64 {
+    dot_through(a, b, |v| v)
+}
+
+/// Σ a_i value(b_i), summed as [`dot`] sums: `dot` itself, or a dot product with x read
+/// through row indices (b_i = rows_i, value = x[row]).
+fn dot_through<T: Entry, B: Copy>(a: &[T], b: &[B], value: impl Fn(B) -> f64) -> f64 {
     let mut sums = [0.0; 4];
     let (a4, b4) = (a.chunks_exact(4), b.chunks_exact(4));
     let tail: f64 = a4
         .remainder()
         .iter()
         .zip(b4.remainder())
-        .map(|(x, y)| x.to_f64() * y)
+        .map(|(x, &y)| x.to_f64() * value(y))
         .sum();
     for (x, y) in a4.zip(b4) {
         for l in 0..4 {
-            sums[l] += x[l].to_f64() * y[l];
+            sums[l] += x[l].to_f64() * value(y[l]);
         }
     }
     (sums[0] + sums[1]) + (sums[2] + sums[3]) + tail
